@@ -1,0 +1,229 @@
+//! Errors that reach the user.
+//!
+//! Owns: the one error type of the crate, [`KilnError`], and its rendering in the style of a
+//! compiler diagnostic (the offending source line with a caret under the fault, then a hint).
+//! Every stage returns `Result<_, KilnError>`; nothing in the crate panics on user input.
+//! Must not: decide what is an error (the stages do that) or print anything itself.
+
+use serde::Serialize;
+use std::fmt;
+
+/// A place in a piece of text the user wrote: a formula field of the spec or the spec file.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Location {
+    /// What the text is: `energy`, `log_density` or the spec file's name.
+    pub source: String,
+    /// 1-based line number.
+    pub line: usize,
+    /// 1-based column, counted in characters.
+    pub column: usize,
+    /// The whole source line, for display.
+    pub line_text: String,
+    /// How many characters the caret underlines (at least one).
+    pub width: usize,
+}
+
+impl Location {
+    /// The location of the byte range `start..end` of `text`.
+    pub fn in_text(source: &str, text: &str, start: usize, end: usize) -> Location {
+        let start = floor_char_boundary(text, start.min(text.len()));
+        let end = floor_char_boundary(text, end.clamp(start, text.len()));
+        let line_start = text[..start].rfind('\n').map_or(0, |i| i + 1);
+        let line_end = text[start..].find('\n').map_or(text.len(), |i| start + i);
+        let line = text[..start].matches('\n').count() + 1;
+        let column = text[line_start..start].chars().count() + 1;
+        let width = text[start..end.min(line_end)].chars().count().max(1);
+        Location {
+            source: source.to_string(),
+            line,
+            column,
+            line_text: text[line_start..line_end].trim_end_matches('\r').to_string(),
+            width,
+        }
+    }
+
+    /// A location given as 1-based line and column (as JSON parsers report it).
+    pub fn at_line_column(source: &str, text: &str, line: usize, column: usize) -> Location {
+        let line_text = text
+            .lines()
+            .nth(line.saturating_sub(1))
+            .unwrap_or("")
+            .to_string();
+        Location {
+            source: source.to_string(),
+            line: line.max(1),
+            column: column.max(1),
+            line_text,
+            width: 1,
+        }
+    }
+}
+
+fn floor_char_boundary(text: &str, mut i: usize) -> usize {
+    while i > 0 && !text.is_char_boundary(i) {
+        i -= 1;
+    }
+    i
+}
+
+/// What kind of failure this is; the command line maps every kind to exit code 2.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ErrorKind {
+    /// The spec file is not valid JSON or has the wrong shape.
+    Spec,
+    /// A formula does not parse or names something unknown.
+    Formula,
+    /// The density itself is unusable: non-finite everywhere, improper, no mode.
+    Density,
+    /// A size limit was exceeded.
+    Limit,
+    /// A command-line usage mistake or an unreadable file.
+    Usage,
+}
+
+/// An error for the user, with where it happened and how to fix it.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct KilnError {
+    pub kind: ErrorKind,
+    pub message: String,
+    /// Where in the user's text; `None` when the fault is not in one place.
+    pub location: Option<Location>,
+    /// How to fix it.
+    pub hint: Option<String>,
+}
+
+impl KilnError {
+    pub fn new(kind: ErrorKind, message: impl Into<String>) -> KilnError {
+        KilnError {
+            kind,
+            message: message.into(),
+            location: None,
+            hint: None,
+        }
+    }
+    pub fn spec(message: impl Into<String>) -> KilnError {
+        KilnError::new(ErrorKind::Spec, message)
+    }
+    pub fn density(message: impl Into<String>) -> KilnError {
+        KilnError::new(ErrorKind::Density, message)
+    }
+    pub fn limit(message: impl Into<String>) -> KilnError {
+        KilnError::new(ErrorKind::Limit, message)
+    }
+    pub fn usage(message: impl Into<String>) -> KilnError {
+        KilnError::new(ErrorKind::Usage, message)
+    }
+    pub fn at(mut self, location: Location) -> KilnError {
+        self.location = Some(location);
+        self
+    }
+    pub fn with_hint(mut self, hint: impl Into<String>) -> KilnError {
+        self.hint = Some(hint.into());
+        self
+    }
+
+    /// The diagnostic as several lines of plain text.
+    pub fn render(&self) -> String {
+        let mut out = format!("error: {}\n", self.message);
+        if let Some(loc) = &self.location {
+            let number = loc.line.to_string();
+            let pad = " ".repeat(number.len());
+            out.push_str(&format!(
+                "{pad}--> {}, line {}, column {}\n",
+                loc.source, loc.line, loc.column
+            ));
+            out.push_str(&format!("{pad} |\n"));
+            out.push_str(&format!("{number} | {}\n", loc.line_text));
+            // Tabs in the line keep their width under the caret.
+            let lead: String = loc
+                .line_text
+                .chars()
+                .take(loc.column - 1)
+                .map(|c| if c == '\t' { '\t' } else { ' ' })
+                .collect();
+            out.push_str(&format!("{pad} | {lead}{}\n", "^".repeat(loc.width)));
+        }
+        if let Some(hint) = &self.hint {
+            out.push_str(&format!("  = hint: {hint}\n"));
+        }
+        out
+    }
+}
+
+impl fmt::Display for KilnError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(&self.render())
+    }
+}
+
+impl std::error::Error for KilnError {}
+
+/// The closest of `candidates` to `name` by edit distance, if it is plausibly a misspelling.
+pub fn nearest<'a>(name: &str, candidates: impl IntoIterator<Item = &'a str>) -> Option<&'a str> {
+    let mut best: Option<(&str, usize)> = None;
+    for c in candidates {
+        let d = edit_distance(&name.to_lowercase(), &c.to_lowercase());
+        if best.is_none_or(|(_, bd)| d < bd) {
+            best = Some((c, d));
+        }
+    }
+    let (c, d) = best?;
+    let allowed = match name.chars().count() {
+        0..=2 => 1,
+        3..=5 => 2,
+        _ => 3,
+    };
+    (d <= allowed).then_some(c)
+}
+
+/// Levenshtein distance, with a transposition of neighbours counting as one edit.
+pub fn edit_distance(a: &str, b: &str) -> usize {
+    let a: Vec<char> = a.chars().collect();
+    let b: Vec<char> = b.chars().collect();
+    let mut d = vec![vec![0usize; b.len() + 1]; a.len() + 1];
+    for (i, row) in d.iter_mut().enumerate() {
+        row[0] = i;
+    }
+    for j in 0..=b.len() {
+        d[0][j] = j;
+    }
+    for i in 1..=a.len() {
+        for j in 1..=b.len() {
+            let cost = usize::from(a[i - 1] != b[j - 1]);
+            let mut v = (d[i - 1][j] + 1).min(d[i][j - 1] + 1).min(d[i - 1][j - 1] + cost);
+            if i > 1 && j > 1 && a[i - 1] == b[j - 2] && a[i - 2] == b[j - 1] {
+                v = v.min(d[i - 2][j - 2] + 1);
+            }
+            d[i][j] = v;
+        }
+    }
+    d[a.len()][b.len()]
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn caret_sits_under_the_fault() {
+        let text = "let a = x;\nlgama(a) + 1";
+        let loc = Location::in_text("energy", text, 11, 16);
+        assert_eq!((loc.line, loc.column, loc.width), (2, 1, 5));
+        let e = KilnError::new(ErrorKind::Formula, "unknown function `lgama`")
+            .at(loc)
+            .with_hint("did you mean `lgamma`?");
+        let r = e.render();
+        assert!(r.contains("2 | lgama(a) + 1\n  | ^^^^^\n"), "{r}");
+        assert!(r.contains("hint: did you mean `lgamma`?"));
+    }
+
+    #[test]
+    fn nearest_name_finds_misspellings_only() {
+        let names = ["lgamma", "log", "log1p", "exp"];
+        assert_eq!(nearest("lgama", names), Some("lgamma"));
+        assert_eq!(nearest("expp", names), Some("exp"));
+        assert_eq!(nearest("banana", names), None);
+        assert_eq!(edit_distance("ab", "ba"), 1);
+    }
+}
