@@ -116,7 +116,7 @@ pub fn digamma(x: f64) -> f64 {
         acc -= PI / libm::tan(PI * x);
         x = 1.0 - x;
     }
-    while x < 6.0 {
+    while x < 10.0 {
         acc -= 1.0 / x;
         x += 1.0;
     }
@@ -125,7 +125,11 @@ pub fn digamma(x: f64) -> f64 {
     // Asymptotic series ψ(x) ~ ln x − 1/(2x) − Σ B_{2k}/(2k x^{2k}).
     let series = inv2
         * (1.0 / 12.0
-            - inv2 * (1.0 / 120.0 - inv2 * (1.0 / 252.0 - inv2 * (1.0 / 240.0 - inv2 * (1.0 / 132.0)))));
+            - inv2
+                * (1.0 / 120.0
+                    - inv2
+                        * (1.0 / 252.0
+                            - inv2 * (1.0 / 240.0 - inv2 * (1.0 / 132.0 - inv2 * (691.0 / 32760.0 - inv2 / 12.0))))));
     acc + ln(x) - 0.5 * inv - series
 }
 

@@ -164,7 +164,7 @@ impl Tape {
             &mut |id, cache_ref: &mut HashMap<NodeId, Vec<f64>>| eval_data_only(id, cache_ref),
             &mut data_only_cache,
         );
-        let outer = finish(outer, root);
+        let outer = finish(outer, root, &mut sums);
         Tape { n_vars, outer, sums }
     }
 
@@ -306,7 +306,7 @@ fn emit_outer(
                 input_slot(&mut sub, n);
             }
             let root = emit_row(body, nodes, flags, &mut sub);
-            let sub_seg = finish(sub, root);
+            let sub_seg = finish(sub, root, &mut []);
             let outer_inputs: Vec<u32> = invariant.iter().map(|&n| rec(n, seg, sums, cache)).collect();
             let col_values: Vec<Vec<f64>> = columns.iter().map(|&c| eval_data_only(c, cache)).collect();
             let mut row_major = Vec::with_capacity(columns.len() * data.rows);
@@ -384,8 +384,9 @@ fn emit_row(id: NodeId, nodes: &[Node], flags: &[Flags], seg: &mut SegBuilder) -
     slot
 }
 
-/// Renumbers tagged slots: constants, inputs, then code.
-fn finish(b: SegBuilder, root: u32) -> Segment {
+/// Renumbers tagged slots: constants, inputs, then code. `sums` read slots of this segment
+/// (their loop-invariant inputs) and are renumbered too.
+fn finish(b: SegBuilder, root: u32, sums: &mut [SumLoop]) -> Segment {
     let n_const = b.init.len();
     let first_input = n_const;
     let first_code = n_const + b.inputs.len();
@@ -409,6 +410,11 @@ fn finish(b: SegBuilder, root: u32) -> Segment {
             Ins::Sum(k) => Ins::Sum(k),
         })
         .collect();
+    for lp in sums.iter_mut() {
+        for s in lp.outer_inputs.iter_mut() {
+            *s = fix(*s);
+        }
+    }
     Segment {
         init: b.init,
         first_input,
