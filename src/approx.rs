@@ -25,7 +25,9 @@ pub struct Laplace {
 impl Laplace {
     pub fn from_modes(modes: &[Mode]) -> Result<Laplace, KilnError> {
         if modes.is_empty() {
-            return Err(KilnError::density("no mode was found, so there is nothing to approximate"));
+            return Err(KilnError::density(
+                "no mode was found, so there is nothing to approximate",
+            ));
         }
         let d = modes[0].z.len();
         let mut log_l = Vec::with_capacity(modes.len());
@@ -36,9 +38,18 @@ impl Laplace {
                 KilnError::density("a mode's Hessian is not positive definite")
                     .with_hint("the density may be flat or not normalisable near a mode")
             })?;
-            let log_det_h: f64 = 2.0 * chol.l().diagonal().iter().map(|v| crate::maths::ln(*v)).sum::<f64>();
+            let log_det_h: f64 = 2.0
+                * chol
+                    .l()
+                    .diagonal()
+                    .iter()
+                    .map(|v| crate::maths::ln(*v))
+                    .sum::<f64>();
             let cov = chol.inverse();
-            let flat: Vec<f64> = (0..d).flat_map(|i| (0..d).map(move |j| (i, j))).map(|(i, j)| 0.5 * (cov[(i, j)] + cov[(j, i)])).collect();
+            let flat: Vec<f64> = (0..d)
+                .flat_map(|i| (0..d).map(move |j| (i, j)))
+                .map(|(i, j)| 0.5 * (cov[(i, j)] + cov[(j, i)]))
+                .collect();
             let g = Gaussian::from_flat(m.z.clone(), &flat, f64::INFINITY).ok_or_else(|| {
                 KilnError::density("a mode's covariance is not positive definite")
             })?;
@@ -47,7 +58,11 @@ impl Laplace {
         }
         let log_zeta = log_sum_exp(&log_l);
         let weights: Vec<f64> = log_l.iter().map(|l| exp(l - log_zeta)).collect();
-        Ok(Laplace { log_zeta, log_l: log_l.clone(), base: Mixture::new(comps, &weights) })
+        Ok(Laplace {
+            log_zeta,
+            log_l: log_l.clone(),
+            base: Mixture::new(comps, &weights),
+        })
     }
 
     /// The Laplace mass of each mode, L_k / ζ.
@@ -59,6 +74,8 @@ impl Laplace {
     pub fn component_sd(&self, k: usize) -> Vec<f64> {
         let c = &self.base.components[k];
         let s = c.scale_matrix();
-        (0..c.dim).map(|i| crate::maths::sqrt(s[i * c.dim + i])).collect()
+        (0..c.dim)
+            .map(|i| crate::maths::sqrt(s[i * c.dim + i]))
+            .collect()
     }
 }

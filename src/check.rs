@@ -121,16 +121,17 @@ const FUNCTIONS: &[(&str, Arity, Builtin)] = &[
     ("pow", Arity::Exactly(2), Builtin::Binary(Binary::Pow)),
     ("min", Arity::AtLeast(2), Builtin::Fold(Binary::Min)),
     ("max", Arity::AtLeast(2), Builtin::Fold(Binary::Max)),
-    ("logsumexp", Arity::AtLeast(1), Builtin::Fold(Binary::LogAddExp)),
+    (
+        "logsumexp",
+        Arity::AtLeast(1),
+        Builtin::Fold(Binary::LogAddExp),
+    ),
     ("sum", Arity::Exactly(1), Builtin::Sum),
 ];
 
 /// Names a user may not give to an unknown, a data column or a definition.
 pub fn reserved_names() -> impl Iterator<Item = &'static str> {
-    FUNCTIONS
-        .iter()
-        .map(|f| f.0)
-        .chain(["pi", "e", "let"])
+    FUNCTIONS.iter().map(|f| f.0).chain(["pi", "e", "let"])
 }
 
 /// Is `name` a valid identifier of the formula language?
@@ -198,7 +199,12 @@ impl<'a> Checker<'a> {
         }
     }
 
-    fn name(&mut self, name: &str, span: Span, inside_sum: Option<Span>) -> Result<NodeId, KilnError> {
+    fn name(
+        &mut self,
+        name: &str,
+        span: Span,
+        inside_sum: Option<Span>,
+    ) -> Result<NodeId, KilnError> {
         match self.scope.get(name).copied() {
             Some(Binding::Var(i)) => Ok(self.builder.add(Node::Var(i))),
             Some(Binding::Const(v)) => Ok(self.builder.add(Node::Const(v))),
@@ -223,13 +229,17 @@ impl<'a> Checker<'a> {
                 let known = self.known_names();
                 let hint = match nearest(name, known.iter().copied()) {
                     Some(n) => format!("did you mean `{n}`?"),
-                    None if known.is_empty() => "declare it under \"variables\" in the spec".to_string(),
+                    None if known.is_empty() => {
+                        "declare it under \"variables\" in the spec".to_string()
+                    }
                     None => format!(
                         "known names are {}; declare new unknowns under \"variables\"",
                         list_names(&known)
                     ),
                 };
-                Err(self.err(span, format!("unknown name `{name}`")).with_hint(hint))
+                Err(self
+                    .err(span, format!("unknown name `{name}`"))
+                    .with_hint(hint))
             }
         }
     }
@@ -275,7 +285,10 @@ impl<'a> Checker<'a> {
                 _ => "",
             };
             return Err(self
-                .err(span, format!("`{name}` takes {wanted}, found {}", args.len()))
+                .err(
+                    span,
+                    format!("`{name}` takes {wanted}, found {}", args.len()),
+                )
                 .with_hint(format!("give `{name}` {wanted}{example}")));
         }
         match builtin {
@@ -298,14 +311,23 @@ impl<'a> Checker<'a> {
             }
             Builtin::Sum => {
                 if let Some(outer) = inside_sum {
-                    let col = crate::error::Location::in_text(self.source, self.text, outer.start, outer.end).column;
+                    let col = crate::error::Location::in_text(
+                        self.source,
+                        self.text,
+                        outer.start,
+                        outer.end,
+                    )
+                    .column;
                     return Err(self
                         .err(name_span, "sum(…) may not contain another sum(…)")
                         .with_hint(format!("the enclosing sum starts at column {col}; a sum already runs over every data row, so add the terms inside one sum")));
                 }
                 if self.data_names.is_empty() {
                     return Err(self
-                        .err(name_span, "sum(…) adds over data rows, but the spec has no data")
+                        .err(
+                            name_span,
+                            "sum(…) adds over data rows, but the spec has no data",
+                        )
                         .with_hint("add columns under \"data\" in the spec, or remove the sum"));
                 }
                 let body = self.expr(&args[0], Some(span))?;
@@ -318,7 +340,10 @@ impl<'a> Checker<'a> {
 fn list_names(names: &[&str]) -> String {
     let mut v: Vec<&str> = names.to_vec();
     v.sort_unstable();
-    v.iter().map(|n| format!("`{n}`")).collect::<Vec<_>>().join(", ")
+    v.iter()
+        .map(|n| format!("`{n}`"))
+        .collect::<Vec<_>>()
+        .join(", ")
 }
 
 /// Checks a parsed formula against the unknowns and data columns of the spec.
@@ -361,7 +386,10 @@ pub fn check(
         }
         if FUNCTIONS.iter().any(|f| f.0 == def.name) {
             return Err(c
-                .err(def.name_span, format!("`{}` is a built-in function", def.name))
+                .err(
+                    def.name_span,
+                    format!("`{}` is a built-in function", def.name),
+                )
                 .with_hint("choose another name for this definition"));
         }
         let id = c.expr(&def.value, None)?;

@@ -37,7 +37,9 @@ impl Location {
             source: source.to_string(),
             line,
             column,
-            line_text: text[line_start..line_end].trim_end_matches('\r').to_string(),
+            line_text: text[line_start..line_end]
+                .trim_end_matches('\r')
+                .to_string(),
             width,
         }
     }
@@ -88,7 +90,7 @@ pub struct KilnError {
     pub kind: ErrorKind,
     pub message: String,
     /// Where in the user's text; `None` when the fault is not in one place.
-    pub location: Option<Location>,
+    pub location: Option<Box<Location>>,
     /// How to fix it.
     pub hint: Option<String>,
 }
@@ -115,7 +117,7 @@ impl KilnError {
         KilnError::new(ErrorKind::Usage, message)
     }
     pub fn at(mut self, location: Location) -> KilnError {
-        self.location = Some(location);
+        self.location = Some(Box::new(location));
         self
     }
     pub fn with_hint(mut self, hint: impl Into<String>) -> KilnError {
@@ -191,7 +193,9 @@ pub fn edit_distance(a: &str, b: &str) -> usize {
     for i in 1..=a.len() {
         for j in 1..=b.len() {
             let cost = usize::from(a[i - 1] != b[j - 1]);
-            let mut v = (d[i - 1][j] + 1).min(d[i][j - 1] + 1).min(d[i - 1][j - 1] + cost);
+            let mut v = (d[i - 1][j] + 1)
+                .min(d[i][j - 1] + 1)
+                .min(d[i - 1][j - 1] + cost);
             if i > 1 && j > 1 && a[i - 1] == b[j - 2] && a[i - 2] == b[j - 1] {
                 v = v.min(d[i - 2][j - 2] + 1);
             }

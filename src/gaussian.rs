@@ -5,7 +5,7 @@
 //! approximation q of the sampler (a Laplace mixture, possibly refitted).
 //! Must not: know about specs, formulas or samplers.
 
-use crate::maths::{exp, ln, lgamma, log_sum_exp, LN_2PI};
+use crate::maths::{exp, lgamma, ln, log_sum_exp, LN_2PI};
 use crate::rng::Stream;
 
 /// A multivariate normal (or, with finite `nu`, Student-t) component with a dense covariance.
@@ -63,14 +63,24 @@ impl Gaussian {
         let log_det = 2.0 * (0..d).map(|i| ln(chol[i * d + i])).sum::<f64>();
         let df = d as f64;
         let log_norm = if nu.is_finite() {
-            lgamma(0.5 * (nu + df)) - lgamma(0.5 * nu) - 0.5 * df * ln(nu * crate::maths::PI) - 0.5 * log_det
+            lgamma(0.5 * (nu + df))
+                - lgamma(0.5 * nu)
+                - 0.5 * df * ln(nu * crate::maths::PI)
+                - 0.5 * log_det
         } else {
             -0.5 * df * LN_2PI - 0.5 * log_det
         };
         if !log_norm.is_finite() {
             return None;
         }
-        Some(Gaussian { dim: d, mean, chol, log_det, nu, log_norm })
+        Some(Gaussian {
+            dim: d,
+            mean,
+            chol,
+            log_det,
+            nu,
+            log_norm,
+        })
     }
 
     /// Solves L y = x − mean into `y`; returns |y|².
@@ -151,7 +161,9 @@ impl Gaussian {
         let mut c = vec![0.0; d * d];
         for i in 0..d {
             for j in 0..d {
-                c[i * d + j] = (0..=i.min(j)).map(|k| self.chol[i * d + k] * self.chol[j * d + k]).sum();
+                c[i * d + j] = (0..=i.min(j))
+                    .map(|k| self.chol[i * d + k] * self.chol[j * d + k])
+                    .sum();
             }
         }
         c
@@ -273,7 +285,8 @@ impl Mixture {
             let s = c.scale_matrix();
             for i in 0..d {
                 for j in 0..d {
-                    cov[i * d + j] += w[k] * (s[i * d + j] + (c.mean[i] - mean[i]) * (c.mean[j] - mean[j]));
+                    cov[i * d + j] +=
+                        w[k] * (s[i * d + j] + (c.mean[i] - mean[i]) * (c.mean[j] - mean[j]));
                 }
             }
         }
@@ -312,7 +325,8 @@ mod tests {
         // mean = 0.25·(−2) + 0.75·3; var = Σ w (σ² + (μ − mean)²).
         let mu = 0.25 * -2.0 + 0.75 * 3.0;
         assert!((mean[0] - mu).abs() < 1e-15);
-        let var = 0.25 * (0.25 + (-2.0 - mu) * (-2.0 - mu)) + 0.75 * (1.0 + (3.0 - mu) * (3.0 - mu));
+        let var =
+            0.25 * (0.25 + (-2.0 - mu) * (-2.0 - mu)) + 0.75 * (1.0 + (3.0 - mu) * (3.0 - mu));
         assert!((cov[0] - var).abs() < 1e-14);
     }
 }

@@ -18,20 +18,23 @@
 //! The command line (`src/main.rs`) and the WebAssembly layer (`wasm`) only translate.
 
 pub mod error;
+pub mod gaussian;
 pub mod maths;
 pub mod rng;
-pub mod gaussian;
 
+pub mod approx;
+pub mod check;
+pub mod hmc;
+pub mod modes;
+pub mod pipeline;
+pub mod quadrature;
+pub mod refit;
+pub mod report;
 pub mod spec;
 pub mod syntax;
-pub mod check;
 pub mod tape;
 pub mod target;
-pub mod modes;
-pub mod approx;
-pub mod quadrature;
-pub mod pipeline;
-pub mod report;
+pub mod tempering;
 
 #[cfg(target_arch = "wasm32")]
 pub mod wasm;

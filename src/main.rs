@@ -16,18 +16,22 @@ Usage:
 Exit codes: 0 success, 2 bad input (the message on standard error says where and how to fix it).";
 
 fn read_spec(path: &str) -> Result<kiln::Spec, KilnError> {
-    let text = std::fs::read_to_string(path)
-        .map_err(|e| KilnError::usage(format!("cannot read `{path}`: {e}")).with_hint("check the path and that the file is UTF-8 text"))?;
+    let text = std::fs::read_to_string(path).map_err(|e| {
+        KilnError::usage(format!("cannot read `{path}`: {e}"))
+            .with_hint("check the path and that the file is UTF-8 text")
+    })?;
     kiln::parse_spec(path, &text)
 }
 
 fn to_json<T: serde::Serialize>(v: &T) -> Result<String, KilnError> {
-    serde_json::to_string_pretty(v).map_err(|e| KilnError::usage(format!("could not write JSON: {e}")))
+    serde_json::to_string_pretty(v)
+        .map_err(|e| KilnError::usage(format!("could not write JSON: {e}")))
 }
 
 fn run(args: &[String]) -> Result<String, KilnError> {
     let Some(cmd) = args.first() else {
-        return Err(KilnError::usage("no command given").with_hint("try `kiln check SPEC.json`; `kiln --help` lists the commands"));
+        return Err(KilnError::usage("no command given")
+            .with_hint("try `kiln check SPEC.json`; `kiln --help` lists the commands"));
     };
     match cmd.as_str() {
         "-h" | "--help" | "help" => Ok(USAGE.to_string()),
@@ -39,13 +43,17 @@ fn run(args: &[String]) -> Result<String, KilnError> {
                 match a.as_str() {
                     "--json" => json = true,
                     s if s.starts_with('-') => {
-                        return Err(KilnError::usage(format!("unknown option `{s}` for `kiln check`")).with_hint("the only option is --json"))
+                        return Err(KilnError::usage(format!(
+                            "unknown option `{s}` for `kiln check`"
+                        ))
+                        .with_hint("the only option is --json"))
                     }
                     s => files.push(s.to_string()),
                 }
             }
             if files.len() != 1 {
-                return Err(KilnError::usage("`kiln check` takes exactly one spec file").with_hint("kiln check SPEC.json [--json]"));
+                return Err(KilnError::usage("`kiln check` takes exactly one spec file")
+                    .with_hint("kiln check SPEC.json [--json]"));
             }
             let spec = read_spec(&files[0])?;
             let outcome = pipeline::check(&spec)?;

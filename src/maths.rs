@@ -129,7 +129,11 @@ pub fn digamma(x: f64) -> f64 {
                 * (1.0 / 120.0
                     - inv2
                         * (1.0 / 252.0
-                            - inv2 * (1.0 / 240.0 - inv2 * (1.0 / 132.0 - inv2 * (691.0 / 32760.0 - inv2 / 12.0))))));
+                            - inv2
+                                * (1.0 / 240.0
+                                    - inv2
+                                        * (1.0 / 132.0
+                                            - inv2 * (691.0 / 32760.0 - inv2 / 12.0))))));
     acc + ln(x) - 0.5 * inv - series
 }
 
@@ -312,7 +316,10 @@ mod tests {
         assert!((digamma(0.5) + gamma + 2.0 * std::f64::consts::LN_2).abs() < 1e-14);
         // Recurrence ψ(x+1) = ψ(x) + 1/x, and reflection, at awkward points.
         for &x in &[0.013, 0.7, 3.3, 17.5, -0.4, -2.7] {
-            assert!((digamma(x + 1.0) - digamma(x) - 1.0 / x).abs() < 1e-11, "{x}");
+            assert!(
+                (digamma(x + 1.0) - digamma(x) - 1.0 / x).abs() < 1e-11,
+                "{x}"
+            );
         }
     }
 

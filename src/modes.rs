@@ -48,22 +48,29 @@ pub struct ModeSearch {
 
 #[derive(Clone, Copy, Debug)]
 pub struct SearchOptions {
-    /// Most starts; the search stops earlier when new starts stop finding new modes.
+    /// Most starts.
     pub max_starts: usize,
+    /// Stop before `max_starts` once the latter half of the starts found no new mode.
+    pub early_stop: bool,
     pub seed: u64,
 }
 
 impl SearchOptions {
-    /// Default: 20 + 30 D starts, at most 2000.
+    /// Default: 40 + 40 D starts, at most 2000.
     pub fn default_for(dim: usize, seed: u64) -> SearchOptions {
-        SearchOptions { max_starts: (20 + 30 * dim).min(2000), seed }
+        SearchOptions {
+            max_starts: (40 + 40 * dim).min(2000),
+            early_stop: true,
+            seed,
+        }
     }
 }
 
 const FIRST_PRIMES: [u32; 64] = [
-    2, 3, 5, 7, 11, 13, 17, 19, 23, 29, 31, 37, 41, 43, 47, 53, 59, 61, 67, 71, 73, 79, 83, 89, 97, 101,
-    103, 107, 109, 113, 127, 131, 137, 139, 149, 151, 157, 163, 167, 173, 179, 181, 191, 193, 197, 199,
-    211, 223, 227, 229, 233, 239, 241, 251, 257, 263, 269, 271, 277, 281, 283, 293, 307, 311,
+    2, 3, 5, 7, 11, 13, 17, 19, 23, 29, 31, 37, 41, 43, 47, 53, 59, 61, 67, 71, 73, 79, 83, 89, 97,
+    101, 103, 107, 109, 113, 127, 131, 137, 139, 149, 151, 157, 163, 167, 173, 179, 181, 191, 193,
+    197, 199, 211, 223, 227, 229, 233, 239, 241, 251, 257, 263, 269, 271, 277, 281, 283, 293, 307,
+    311,
 ];
 
 fn radical_inverse(mut i: u64, base: u64) -> f64 {
@@ -78,17 +85,28 @@ fn radical_inverse(mut i: u64, base: u64) -> f64 {
 }
 
 /// The k-th starting point in unconstrained coordinates: a randomly shifted Halton point,
-/// mapped per unknown (inside the bounds, or over several scales for unbounded unknowns).
+/// mapped per unknown (inside the bounds; log-spread for one bound; for unbounded unknowns
+/// uniform on ±s with a scale s log-uniform on [1, 100], drawn from one more Halton axis so
+/// that scale and position are not correlated).
 fn start_point(k: usize, transforms: &[Transform], shift: &[f64]) -> Vec<f64> {
-    let scales = [1.0, 4.0, 16.0, 64.0];
+    let d = transforms.len();
+    let halton = |axis: usize| -> f64 {
+        if k == 0 {
+            0.5
+        } else {
+            (radical_inverse(k as u64, FIRST_PRIMES[axis % FIRST_PRIMES.len()] as u64)
+                + shift[axis])
+                .fract()
+        }
+    };
+    let scale = crate::maths::exp(ln(100.0) * halton(d));
     transforms
         .iter()
         .enumerate()
         .map(|(i, t)| {
-            let u = if k == 0 { 0.5 } else { (radical_inverse(k as u64, FIRST_PRIMES[i] as u64) + shift[i]).fract() };
-            let u = 0.005 + 0.99 * u;
+            let u = 0.005 + 0.99 * halton(i);
             match t {
-                Transform::Free => scales[k % scales.len()] * (2.0 * u - 1.0),
+                Transform::Free => scale * (2.0 * u - 1.0),
                 Transform::Lower(_) | Transform::Upper(_) => 12.0 * (u - 0.5),
                 Transform::Interval(..) => ln(u) - ln(1.0 - u),
             }
@@ -98,7 +116,11 @@ fn start_point(k: usize, transforms: &[Transform], shift: &[f64]) -> Vec<f64> {
 
 /// Outcome of one minimisation.
 enum Outcome {
-    Converged { z: Vec<f64>, f: f64, inv_hessian_diag: Vec<f64> },
+    Converged {
+        z: Vec<f64>,
+        f: f64,
+        inv_hessian_diag: Vec<f64>,
+    },
     /// The energy kept falling while `z` ran off towards the edge of the space.
     Escaped { z: Vec<f64>, from: Vec<f64> },
     /// The energy was −∞ here.
@@ -138,7 +160,14 @@ fn axpy(z: &[f64], a: f64, p: &[f64]) -> Vec<f64> {
 
 /// Strong-Wolfe line search along `p` from `z` (Nocedal & Wright, algorithms 3.5 and 3.6).
 /// Returns (step, f, g) or `None` if no acceptable step was found.
-fn line_search(obj: &mut Objective, z: &[f64], f0: f64, g0: &[f64], p: &[f64], a_max: f64) -> Option<(f64, f64, Vec<f64>)> {
+fn line_search(
+    obj: &mut Objective,
+    z: &[f64],
+    f0: f64,
+    g0: &[f64],
+    p: &[f64],
+    a_max: f64,
+) -> Option<(f64, f64, Vec<f64>)> {
     let (c1, c2) = (1e-4, 0.9);
     let d0 = dot(g0, p);
     if !(d0 < 0.0) {
@@ -239,7 +268,10 @@ fn zoom(
 /// BFGS from `z0`.
 fn minimize(ev: &mut TargetEval, z0: Vec<f64>, transforms: &[Transform]) -> Outcome {
     let d = z0.len();
-    let mut obj = Objective { ev, g: vec![0.0; d] };
+    let mut obj = Objective {
+        ev,
+        g: vec![0.0; d],
+    };
     let (mut f, mut g) = obj.eval(&z0);
     if f == f64::NEG_INFINITY {
         return Outcome::Infinite { z: z0 };
@@ -257,11 +289,15 @@ fn minimize(ev: &mut TargetEval, z0: Vec<f64>, transforms: &[Transform]) -> Outc
     let mut outside = 0;
     for _iter in 0..2000 {
         // Converged when the gradient, measured in the current standard deviations, is tiny.
-        let scaled = (0..d).map(|i| (g[i] * sqrt(h[i * d + i].abs())).abs()).fold(0.0, f64::max);
+        let scaled = (0..d)
+            .map(|i| (g[i] * sqrt(h[i * d + i].abs())).abs())
+            .fold(0.0, f64::max);
         if !first && scaled < 1e-7 {
             break;
         }
-        let mut p: Vec<f64> = (0..d).map(|i| -(0..d).map(|j| h[i * d + j] * g[j]).sum::<f64>()).collect();
+        let mut p: Vec<f64> = (0..d)
+            .map(|i| -(0..d).map(|j| h[i * d + j] * g[j]).sum::<f64>())
+            .collect();
         if first {
             let n = sqrt(dot(&g, &g));
             if n > 0.0 {
@@ -280,7 +316,11 @@ fn minimize(ev: &mut TargetEval, z0: Vec<f64>, transforms: &[Transform]) -> Outc
         // Longest step: 10 units, or twice the distance from the origin, in the max norm.
         let p_max = p.iter().fold(0.0f64, |m, v| m.max(v.abs()));
         let z_max = z.iter().fold(0.0f64, |m, v| m.max(v.abs()));
-        let a_max = if p_max > 0.0 { (10.0f64).max(2.0 * z_max) / p_max } else { 1.0 };
+        let a_max = if p_max > 0.0 {
+            (10.0f64).max(2.0 * z_max) / p_max
+        } else {
+            1.0
+        };
         let Some((a, f_new, g_new)) = line_search(&mut obj, &z, f, &g, &p, a_max) else {
             break;
         };
@@ -309,11 +349,14 @@ fn minimize(ev: &mut TargetEval, z0: Vec<f64>, transforms: &[Transform]) -> Outc
         if sy > 1e-300 {
             // H ← (I − ρ s yᵀ) H (I − ρ y sᵀ) + ρ s sᵀ
             let rho = 1.0 / sy;
-            let hy: Vec<f64> = (0..d).map(|i| (0..d).map(|j| h[i * d + j] * y[j]).sum()).collect();
+            let hy: Vec<f64> = (0..d)
+                .map(|i| (0..d).map(|j| h[i * d + j] * y[j]).sum())
+                .collect();
             let yhy = dot(&y, &hy);
             for i in 0..d {
                 for j in 0..d {
-                    h[i * d + j] += -rho * (hy[i] * s[j] + s[i] * hy[j]) + (rho * rho * yhy + rho) * s[i] * s[j];
+                    h[i * d + j] += -rho * (hy[i] * s[j] + s[i] * hy[j])
+                        + (rho * rho * yhy + rho) * s[i] * s[j];
                 }
             }
         }
@@ -328,7 +371,11 @@ fn minimize(ev: &mut TargetEval, z0: Vec<f64>, transforms: &[Transform]) -> Outc
         }
     }
     let inv_hessian_diag = (0..d).map(|i| h[i * d + i].abs()).collect();
-    Outcome::Converged { z, f, inv_hessian_diag }
+    Outcome::Converged {
+        z,
+        f,
+        inv_hessian_diag,
+    }
 }
 
 /// Central-difference Hessian of the exact gradient, symmetrised. `steps[i]`: step along z_i.
@@ -368,7 +415,14 @@ enum Probe {
     Flat,
 }
 
-fn probe(ev: &mut TargetEval, z: &[f64], f0: f64, v: &[f64], guess: f64, transforms: &[Transform]) -> Probe {
+fn probe(
+    ev: &mut TargetEval,
+    z: &[f64],
+    f0: f64,
+    v: &[f64],
+    guess: f64,
+    transforms: &[Transform],
+) -> Probe {
     let rise = |ev: &mut TargetEval, t: f64| -> (f64, Vec<f64>) {
         let p = axpy(z, t, v);
         (ev.energy(&p) - f0, p)
@@ -430,9 +484,14 @@ fn probe(ev: &mut TargetEval, z: &[f64], f0: f64, v: &[f64], guess: f64, transfo
 
 /// The result of checking a Hessian against the energy's actual rise along its eigenvectors.
 enum Curvature {
-    Ok { hessian: Vec<f64>, non_quadratic: bool },
+    Ok {
+        hessian: Vec<f64>,
+        non_quadratic: bool,
+    },
     NotMinimum(Vec<f64>),
-    Flat { direction: Vec<f64> },
+    Flat {
+        direction: Vec<f64>,
+    },
 }
 
 /// Checks the Hessian at a candidate mode. Along each eigenvector the energy's rise to 1/2 is
@@ -440,7 +499,13 @@ enum Curvature {
 /// of 10 (a flat-topped or cusped mode, or a near-singular Hessian) the measured curvature
 /// replaces it, so that the Laplace mass stays sensible. For a normal density the two agree
 /// and the Hessian is used unchanged, as the method requires.
-fn curvature_check(ev: &mut TargetEval, z: &[f64], f0: f64, h: &[f64], transforms: &[Transform]) -> Curvature {
+fn curvature_check(
+    ev: &mut TargetEval,
+    z: &[f64],
+    f0: f64,
+    h: &[f64],
+    transforms: &[Transform],
+) -> Curvature {
     let d = z.len();
     let m = DMatrix::from_row_slice(d, d, h);
     let eig = SymmetricEigen::new(m);
@@ -450,7 +515,11 @@ fn curvature_check(ev: &mut TargetEval, z: &[f64], f0: f64, h: &[f64], transform
     for k in 0..d {
         let v: Vec<f64> = vectors.column(k).iter().copied().collect();
         let lam = lambdas[k];
-        let guess = if lam > 0.0 && lam.is_finite() { 1.0 / sqrt(lam) } else { 1.0 };
+        let guess = if lam > 0.0 && lam.is_finite() {
+            1.0 / sqrt(lam)
+        } else {
+            1.0
+        };
         let mut measured = Vec::new();
         for sign in [1.0, -1.0] {
             let dir: Vec<f64> = v.iter().map(|c| sign * c).collect();
@@ -469,7 +538,10 @@ fn curvature_check(ev: &mut TargetEval, z: &[f64], f0: f64, h: &[f64], transform
         }
     }
     if !changed {
-        return Curvature::Ok { hessian: h.to_vec(), non_quadratic: false };
+        return Curvature::Ok {
+            hessian: h.to_vec(),
+            non_quadratic: false,
+        };
     }
     let l = DMatrix::from_diagonal(&nalgebra::DVector::from_vec(lambdas));
     let rebuilt = &vectors * l * vectors.transpose();
@@ -479,7 +551,10 @@ fn curvature_check(ev: &mut TargetEval, z: &[f64], f0: f64, h: &[f64], transform
             out[i * d + j] = 0.5 * (rebuilt[(i, j)] + rebuilt[(j, i)]);
         }
     }
-    Curvature::Ok { hessian: out, non_quadratic: true }
+    Curvature::Ok {
+        hessian: out,
+        non_quadratic: true,
+    }
 }
 
 /// Squared Mahalanobis distance (a − b)ᵀ H (a − b).
@@ -535,7 +610,10 @@ fn settle(
     for round in 0..4 {
         let h = hessian(ev, &z, &steps);
         let (h, non_quadratic) = match curvature_check(ev, &z, f, &h, transforms) {
-            Curvature::Ok { hessian, non_quadratic } => (hessian, non_quadratic),
+            Curvature::Ok {
+                hessian,
+                non_quadratic,
+            } => (hessian, non_quadratic),
             Curvature::NotMinimum(p) => return Ok(Err(p)),
             Curvature::Flat { direction } => {
                 let far = axpy(&z, 1e6, &direction);
@@ -576,20 +654,37 @@ fn settle(
         if !moved {
             let x = target.to_user(&z);
             let user_energy = ev.user_energy(&x);
-            return Ok(Ok(Mode { z, x, energy: f, user_energy, hessian: h, hits: 1, non_quadratic }));
+            return Ok(Ok(Mode {
+                z,
+                x,
+                energy: f,
+                user_energy,
+                hessian: h,
+                hits: 1,
+                non_quadratic,
+            }));
         }
     }
     let h = hessian(ev, &z, &steps);
     let x = target.to_user(&z);
     let user_energy = ev.user_energy(&x);
-    Ok(Ok(Mode { z, x, energy: f, user_energy, hessian: h, hits: 1, non_quadratic: false }))
+    Ok(Ok(Mode {
+        z,
+        x,
+        energy: f,
+        user_energy,
+        hessian: h,
+        hits: 1,
+        non_quadratic: false,
+    }))
 }
 
 /// Adds `m` to `modes` unless it is within one standard deviation of a known mode.
 /// Returns true if it was new.
 pub fn merge_mode(modes: &mut Vec<Mode>, m: Mode) -> bool {
     for known in modes.iter_mut() {
-        let near = mahalanobis2(&m.z, &known.z, &known.hessian) < 1.0 || mahalanobis2(&m.z, &known.z, &m.hessian) < 1.0;
+        let near = mahalanobis2(&m.z, &known.z, &known.hessian) < 1.0
+            || mahalanobis2(&m.z, &known.z, &m.hessian) < 1.0;
         if near {
             known.hits += m.hits;
             if m.energy < known.energy {
@@ -609,7 +704,7 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
     let d = target.dim();
     let mut ev = target.evaluator();
     let mut rng = Stream::new(opts.seed, Purpose::ModeSearch, 0);
-    let shift: Vec<f64> = (0..d).map(|_| rng.uniform()).collect();
+    let shift: Vec<f64> = (0..=d).map(|_| rng.uniform()).collect();
     let mut modes: Vec<Mode> = Vec::new();
     let mut notes = Vec::new();
     let mut bad_starts = 0;
@@ -618,7 +713,7 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
     let mut starts = 0;
     for k in 0..opts.max_starts {
         // Stop early once new starts have long stopped finding new modes.
-        if k >= 24 && k - last_new > k / 2 && !modes.is_empty() {
+        if opts.early_stop && k >= 64 && k - last_new > k / 2 && !modes.is_empty() {
             break;
         }
         starts += 1;
@@ -645,7 +740,11 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
                     let name = escape_variable(&from, &z, &target.names);
                     return Err(improper(target, &name, &z));
                 }
-                Outcome::Converged { z, f, inv_hessian_diag } => {
+                Outcome::Converged {
+                    z,
+                    f,
+                    inv_hessian_diag,
+                } => {
                     let sd: Vec<f64> = inv_hessian_diag.iter().map(|v| sqrt(*v)).collect();
                     match settle(&mut ev, target, z, f, &sd)? {
                         Ok(mode) => {
@@ -666,7 +765,11 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
             Some((z, e)) => format!(
                 " (for example at {} the energy is {})",
                 describe_point(target, &z),
-                if e.is_nan() || e == f64::INFINITY { "not finite".to_string() } else { crate::report::num(e) }
+                if e.is_nan() || e == f64::INFINITY {
+                    "not finite".to_string()
+                } else {
+                    crate::report::num(e)
+                }
             ),
             None => String::new(),
         };
@@ -684,5 +787,10 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
         notes.push("some modes are far from Gaussian; their Laplace masses use the measured width instead of the Hessian".to_string());
     }
     modes.sort_by(|a, b| a.energy.total_cmp(&b.energy));
-    Ok(ModeSearch { modes, starts, evaluations: ev.evaluations, notes })
+    Ok(ModeSearch {
+        modes,
+        starts,
+        evaluations: ev.evaluations,
+        notes,
+    })
 }

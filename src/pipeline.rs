@@ -91,11 +91,18 @@ pub fn prepare(spec: &Spec) -> Result<Prepared, KilnError> {
     let seed = spec.settings.seed.unwrap_or(DEFAULT_SEED);
     let mut opts = SearchOptions::default_for(target.dim(), seed);
     if let Some(s) = spec.settings.starts {
+        // An explicit number of starts is honoured in full.
         opts.max_starts = s;
+        opts.early_stop = false;
     }
     let search = find_modes(&target, opts)?;
     let laplace = Laplace::from_modes(&search.modes)?;
-    Ok(Prepared { target, search, laplace, seed })
+    Ok(Prepared {
+        target,
+        search,
+        laplace,
+        seed,
+    })
 }
 
 /// Mode locations and widths in the user's coordinates.
@@ -161,7 +168,11 @@ pub fn check(spec: &Spec) -> Result<CheckOutcome, KilnError> {
         unknowns: spec
             .variables
             .iter()
-            .map(|v| Unknown { name: v.name.clone(), lower: v.bounds.lower, upper: v.bounds.upper })
+            .map(|v| Unknown {
+                name: v.name.clone(),
+                lower: v.bounds.lower,
+                upper: v.bounds.upper,
+            })
             .collect(),
         data_columns: spec.data.iter().map(|(n, _)| n.clone()).collect(),
         data_rows: spec.data_rows,

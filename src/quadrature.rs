@@ -89,7 +89,11 @@ fn build_axis(i: usize, t: Transform, scales: &ModeScales, widen: [u32; 2]) -> A
     if let (Some(l), Some(u)) = (lo_bound, hi_bound) {
         // A box: one segment, resolved to the narrowest mode.
         let n = (((u - l) / (0.5 * min_sd)).ceil() as usize).clamp(32, 1 << 16);
-        return Axis { segments: vec![Segment { a: l, b: u, n }], open_low: false, open_high: false };
+        return Axis {
+            segments: vec![Segment { a: l, b: u, n }],
+            open_low: false,
+            open_high: false,
+        };
     }
     spans.sort_by(|a, b| a.0.total_cmp(&b.0));
     let mut merged: Vec<(f64, f64, f64)> = Vec::new();
@@ -122,7 +126,11 @@ fn build_axis(i: usize, t: Transform, scales: &ModeScales, widen: [u32; 2]) -> A
             continue;
         }
         if a > cursor {
-            segments.push(Segment { a: cursor, b: a, n: 32 });
+            segments.push(Segment {
+                a: cursor,
+                b: a,
+                n: 32,
+            });
         }
         let a = a.max(cursor);
         if b > a {
@@ -132,9 +140,17 @@ fn build_axis(i: usize, t: Transform, scales: &ModeScales, widen: [u32; 2]) -> A
         }
     }
     if hi > cursor {
-        segments.push(Segment { a: cursor, b: hi, n: 32 });
+        segments.push(Segment {
+            a: cursor,
+            b: hi,
+            n: 32,
+        });
     }
-    Axis { segments, open_low: lo_bound.is_none(), open_high: hi_bound.is_none() }
+    Axis {
+        segments,
+        open_low: lo_bound.is_none(),
+        open_high: hi_bound.is_none(),
+    }
 }
 
 /// One pass over the grid: (log Z, log of the mass in edge cells of open directions).
@@ -185,18 +201,26 @@ fn integrate(target: &Target, axes: &[Axis], level: u32) -> (f64, f64) {
 
 /// Grid quadrature of log Z for `D ≤ 2`; `None` for larger dimensions.
 /// `max_work`: budget in tape instructions (the cost of one evaluation times grid points).
-pub fn grid_log_z(target: &Target, scales: &ModeScales, work_per_point: usize, max_work: f64) -> Option<GridResult> {
+pub fn grid_log_z(
+    target: &Target,
+    scales: &ModeScales,
+    work_per_point: usize,
+    max_work: f64,
+) -> Option<GridResult> {
     let d = target.dim();
     if d == 0 || d > 2 {
         return None;
     }
-    let max_points = (max_work / work_per_point.max(1) as f64).min(if d == 1 { 4e6 } else { 3.2e7 });
+    let max_points =
+        (max_work / work_per_point.max(1) as f64).min(if d == 1 { 4e6 } else { 3.2e7 });
     let mut warnings = Vec::new();
     let mut widen = vec![[0u32; 2]; d];
     let mut result: Option<GridResult> = None;
     // Widen open edges while they carry mass (at most a few times), refining at each extent.
     for _extent in 0..4 {
-        let axes: Vec<Axis> = (0..d).map(|i| build_axis(i, target.transforms[i], scales, widen[i])).collect();
+        let axes: Vec<Axis> = (0..d)
+            .map(|i| build_axis(i, target.transforms[i], scales, widen[i]))
+            .collect();
         let mut prev: Option<f64> = None;
         let mut level = 0;
         let mut last = (f64::NEG_INFINITY, f64::NEG_INFINITY);
@@ -223,7 +247,8 @@ pub fn grid_log_z(target: &Target, scales: &ModeScales, work_per_point: usize, m
         }
         if prev.is_none() && !converged {
             // Not even the coarsest grid fits the budget.
-            let cost = axes.iter().map(|a| a.count(0) as f64).product::<f64>() * work_per_point as f64;
+            let cost =
+                axes.iter().map(|a| a.count(0) as f64).product::<f64>() * work_per_point as f64;
             warnings.push(format!(
                 "grid quadrature skipped: it would need about {:.1e} operations, over the budget of {:.1e}",
                 cost, max_work
@@ -238,13 +263,21 @@ pub fn grid_log_z(target: &Target, scales: &ModeScales, work_per_point: usize, m
             });
         }
         let edge_mass = exp(last.1 - last.0);
-        let used_level = if converged { level } else { level.saturating_sub(1) };
+        let used_level = if converged {
+            level
+        } else {
+            level.saturating_sub(1)
+        };
         result = Some(GridResult {
             log_z: last.0,
             change,
             points_per_axis: axes.iter().map(|a| a.count(used_level)).collect(),
             converged,
-            edge_mass: if edge_mass.is_finite() { edge_mass } else { 0.0 },
+            edge_mass: if edge_mass.is_finite() {
+                edge_mass
+            } else {
+                0.0
+            },
             warnings: Vec::new(),
         });
         let open = axes.iter().any(|a| a.open_low || a.open_high);
@@ -274,7 +307,10 @@ pub fn grid_log_z(target: &Target, scales: &ModeScales, work_per_point: usize, m
         ));
     }
     if r.log_z == f64::NEG_INFINITY {
-        warnings.push("the quadrature grid found no mass: the density is zero or not finite everywhere on it".to_string());
+        warnings.push(
+            "the quadrature grid found no mass: the density is zero or not finite everywhere on it"
+                .to_string(),
+        );
     }
     r.warnings = warnings;
     Some(r)

@@ -54,7 +54,13 @@ fn bounds_text(lower: Option<f64>, upper: Option<f64>) -> String {
 pub fn table(rows: &[Vec<String>]) -> String {
     let cols = rows.iter().map(|r| r.len()).max().unwrap_or(0);
     let widths: Vec<usize> = (0..cols)
-        .map(|c| rows.iter().filter_map(|r| r.get(c)).map(|s| s.chars().count()).max().unwrap_or(0))
+        .map(|c| {
+            rows.iter()
+                .filter_map(|r| r.get(c))
+                .map(|s| s.chars().count())
+                .max()
+                .unwrap_or(0)
+        })
         .collect();
     let mut out = String::new();
     for r in rows {
@@ -71,19 +77,33 @@ pub fn table(rows: &[Vec<String>]) -> String {
 /// The report of `kiln check`.
 pub fn check_text(c: &CheckOutcome) -> String {
     let mut o = String::new();
-    let title = if c.title.is_empty() { "(untitled)" } else { &c.title };
+    let title = if c.title.is_empty() {
+        "(untitled)"
+    } else {
+        &c.title
+    };
     let _ = writeln!(o, "Kiln check: {title}");
     let model = match c.model.as_str() {
         "energy" => "density ∝ exp(−energy)",
         "log_density" => "density ∝ exp(log_density)",
         _ => "Gaussian mixture",
     };
-    let _ = writeln!(o, "\nTarget: {model}, {} unknown{}", c.dimension, if c.dimension == 1 { "" } else { "s" });
+    let _ = writeln!(
+        o,
+        "\nTarget: {model}, {} unknown{}",
+        c.dimension,
+        if c.dimension == 1 { "" } else { "s" }
+    );
     for u in &c.unknowns {
         let _ = writeln!(o, "  {:<12} {}", u.name, bounds_text(u.lower, u.upper));
     }
     if c.data_rows > 0 {
-        let _ = writeln!(o, "  data: {} rows of {}", c.data_rows, c.data_columns.join(", "));
+        let _ = writeln!(
+            o,
+            "  data: {} rows of {}",
+            c.data_rows,
+            c.data_columns.join(", ")
+        );
     }
 
     let _ = writeln!(
@@ -105,7 +125,11 @@ pub fn check_text(c: &CheckOutcome) -> String {
         let mut r = vec![format!("{}", k + 1)];
         r.extend(m.location.iter().map(|v| num(*v)));
         r.push(num(m.energy));
-        r.push(format!("{:.4}{}", m.laplace_mass, if m.non_quadratic { " *" } else { "" }));
+        r.push(format!(
+            "{:.4}{}",
+            m.laplace_mass,
+            if m.non_quadratic { " *" } else { "" }
+        ));
         rows.push(r);
     }
     o.push_str(&table(&rows));
@@ -113,7 +137,10 @@ pub fn check_text(c: &CheckOutcome) -> String {
         let _ = writeln!(o, "  … and {} more (see --json)", c.modes.len() - SHOWN);
     }
     if c.modes.iter().any(|m| m.non_quadratic) {
-        let _ = writeln!(o, "  * not Gaussian-shaped: width measured along the axes of the Hessian");
+        let _ = writeln!(
+            o,
+            "  * not Gaussian-shaped: width measured along the axes of the Hessian"
+        );
     }
 
     let _ = writeln!(o, "\nlog Z");
@@ -130,10 +157,16 @@ pub fn check_text(c: &CheckOutcome) -> String {
             );
         }
         Some(_) => {
-            let _ = writeln!(o, "  grid quadrature            not available (see warnings)");
+            let _ = writeln!(
+                o,
+                "  grid quadrature            not available (see warnings)"
+            );
         }
         None => {
-            let _ = writeln!(o, "  grid quadrature            not run (only for one or two unknowns)");
+            let _ = writeln!(
+                o,
+                "  grid quadrature            not run (only for one or two unknowns)"
+            );
         }
     }
     if let Some(e) = &c.exact {
@@ -152,7 +185,12 @@ pub fn check_text(c: &CheckOutcome) -> String {
             rows.push(r);
         }
         o.push_str(&table(&rows));
-        let means: Vec<String> = c.unknowns.iter().zip(&e.mean).map(|(u, m)| format!("{} = {}", u.name, num(*m))).collect();
+        let means: Vec<String> = c
+            .unknowns
+            .iter()
+            .zip(&e.mean)
+            .map(|(u, m)| format!("{} = {}", u.name, num(*m)))
+            .collect();
         let _ = writeln!(o, "  overall mean: {}", means.join(", "));
         let sds: Vec<String> = c
             .unknowns

@@ -30,7 +30,10 @@ impl Stream {
     pub fn new(seed: u64, purpose: Purpose, index: u64) -> Stream {
         let mut rng = ChaCha8Rng::seed_from_u64(seed);
         rng.set_stream(((purpose as u64) << 48) | index);
-        Stream { rng, spare_normal: None }
+        Stream {
+            rng,
+            spare_normal: None,
+        }
     }
 
     /// Uniform on the open interval (0, 1).
@@ -123,7 +126,10 @@ mod tests {
             let gs: Vec<f64> = (0..n).map(|_| s.gamma(k)).collect();
             let m = gs.iter().sum::<f64>() / n as f64;
             let v = gs.iter().map(|x| (x - m) * (x - m)).sum::<f64>() / n as f64;
-            assert!((m - k).abs() < 0.02 * k.max(1.0) && (v - k).abs() < 0.05 * k.max(1.0), "{k}: {m} {v}");
+            assert!(
+                (m - k).abs() < 0.02 * k.max(1.0) && (v - k).abs() < 0.05 * k.max(1.0),
+                "{k}: {m} {v}"
+            );
         }
     }
 }

@@ -136,7 +136,9 @@ impl<'de> Deserialize<'de> for Columns {
                 let mut out: Vec<(String, Vec<f64>)> = Vec::new();
                 while let Some(key) = map.next_key::<String>()? {
                     if out.iter().any(|(k, _)| *k == key) {
-                        return Err(de::Error::custom(format!("data column `{key}` appears twice")));
+                        return Err(de::Error::custom(format!(
+                            "data column `{key}` appears twice"
+                        )));
                     }
                     let values: Vec<f64> = map.next_value()?;
                     out.push((key, values));
@@ -252,9 +254,7 @@ fn json_error(source: &str, text: &str, e: &serde_json::Error) -> KilnError {
         serde_json::error::Category::Eof => {
             "the file ends early: close every `{`, `[` and string".to_string()
         }
-        serde_json::error::Category::Data => {
-            "see the spec format in the README".to_string()
-        }
+        serde_json::error::Category::Data => "see the spec format in the README".to_string(),
         serde_json::error::Category::Io => "the file could not be read".to_string(),
     };
     if let Some(rest) = message.strip_prefix("unknown field `") {
@@ -280,12 +280,17 @@ fn json_error(source: &str, text: &str, e: &serde_json::Error) -> KilnError {
 
 fn check_name(kind: &str, name: &str) -> Result<(), KilnError> {
     if !is_identifier(name) {
-        return Err(KilnError::spec(format!("{kind} name `{name}` is not a valid name"))
-            .with_hint("use letters, digits and `_`, starting with a letter or `_`, as in `x_1`"));
+        return Err(
+            KilnError::spec(format!("{kind} name `{name}` is not a valid name")).with_hint(
+                "use letters, digits and `_`, starting with a letter or `_`, as in `x_1`",
+            ),
+        );
     }
     if reserved_names().any(|r| r == name) {
-        return Err(KilnError::spec(format!("{kind} name `{name}` is reserved: it is a built-in function or constant"))
-            .with_hint(format!("rename it, for example `{name}_`")));
+        return Err(KilnError::spec(format!(
+            "{kind} name `{name}` is reserved: it is a built-in function or constant"
+        ))
+        .with_hint(format!("rename it, for example `{name}_`")));
     }
     Ok(())
 }
@@ -294,7 +299,8 @@ fn finite(what: &str, v: f64) -> Result<f64, KilnError> {
     if v.is_finite() {
         Ok(v)
     } else {
-        Err(KilnError::spec(format!("{what} is not a finite number")).with_hint("use a finite number"))
+        Err(KilnError::spec(format!("{what} is not a finite number"))
+            .with_hint("use a finite number"))
     }
 }
 
@@ -315,7 +321,11 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
     if given.len() > 1 {
         return Err(KilnError::spec(format!(
             "the spec has more than one target: {}",
-            given.iter().map(|g| format!("\"{g}\"")).collect::<Vec<_>>().join(" and ")
+            given
+                .iter()
+                .map(|g| format!("\"{g}\""))
+                .collect::<Vec<_>>()
+                .join(" and ")
         ))
         .with_hint("keep exactly one of \"energy\", \"log_density\" or \"mixture\""));
     }
@@ -372,7 +382,13 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
             let d = comps[0].mean.len();
             if raw_vars.is_empty() {
                 (1..=d)
-                    .map(|i| Variable { name: format!("x{i}"), bounds: Bounds { lower: None, upper: None } })
+                    .map(|i| Variable {
+                        name: format!("x{i}"),
+                        bounds: Bounds {
+                            lower: None,
+                            upper: None,
+                        },
+                    })
                     .collect()
             } else {
                 if raw_vars.len() != d {
@@ -380,15 +396,31 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
                         "the mixture has dimension {d} but {} variables are named",
                         raw_vars.len()
                     ))
-                    .with_hint("name one variable per mean coordinate, or leave \"variables\" out"));
+                    .with_hint(
+                        "name one variable per mean coordinate, or leave \"variables\" out",
+                    ));
                 }
-                if let Some(v) = raw_vars.iter().find(|v| v.lower.is_some() || v.upper.is_some()) {
-                    return Err(KilnError::spec(format!("variable `{}` has bounds, but a mixture target is unbounded", v.name))
-                        .with_hint("remove the bounds: a mixture's exact answers are over the whole space"));
+                if let Some(v) = raw_vars
+                    .iter()
+                    .find(|v| v.lower.is_some() || v.upper.is_some())
+                {
+                    return Err(KilnError::spec(format!(
+                        "variable `{}` has bounds, but a mixture target is unbounded",
+                        v.name
+                    ))
+                    .with_hint(
+                        "remove the bounds: a mixture's exact answers are over the whole space",
+                    ));
                 }
                 raw_vars
                     .iter()
-                    .map(|v| Variable { name: v.name.clone(), bounds: Bounds { lower: None, upper: None } })
+                    .map(|v| Variable {
+                        name: v.name.clone(),
+                        bounds: Bounds {
+                            lower: None,
+                            upper: None,
+                        },
+                    })
                     .collect()
             }
         }
@@ -399,7 +431,10 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
             }
             let mut out = Vec::new();
             for v in &raw_vars {
-                let b = Bounds { lower: v.lower, upper: v.upper };
+                let b = Bounds {
+                    lower: v.lower,
+                    upper: v.upper,
+                };
                 if let Some(l) = b.lower {
                     finite(&format!("the lower bound of `{}`", v.name), l)?;
                 }
@@ -415,7 +450,10 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
                         .with_hint("swap them, or widen the interval"));
                     }
                 }
-                out.push(Variable { name: v.name.clone(), bounds: b });
+                out.push(Variable {
+                    name: v.name.clone(),
+                    bounds: b,
+                });
             }
             out
         }
@@ -430,12 +468,17 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
     for (i, v) in variables.iter().enumerate() {
         check_name("variable", &v.name)?;
         if variables[..i].iter().any(|w| w.name == v.name) {
-            return Err(KilnError::spec(format!("variable `{}` is listed twice", v.name))
-                .with_hint("give every unknown its own name"));
+            return Err(
+                KilnError::spec(format!("variable `{}` is listed twice", v.name))
+                    .with_hint("give every unknown its own name"),
+            );
         }
         if data.iter().any(|(c, _)| *c == v.name) {
-            return Err(KilnError::spec(format!("`{}` is both a variable and a data column", v.name))
-                .with_hint("rename one of them"));
+            return Err(KilnError::spec(format!(
+                "`{}` is both a variable and a data column",
+                v.name
+            ))
+            .with_hint("rename one of them"));
         }
     }
 
@@ -466,14 +509,18 @@ fn validate_mixture(comps: &[RawComponent]) -> Result<Vec<Component>, KilnError>
     }
     let d = comps[0].mean.len();
     if d == 0 {
-        return Err(KilnError::spec("mixture component 1 has an empty mean").with_hint("give one mean value per unknown"));
+        return Err(KilnError::spec("mixture component 1 has an empty mean")
+            .with_hint("give one mean value per unknown"));
     }
     let mut out = Vec::new();
     for (k, c) in comps.iter().enumerate() {
         let n = k + 1;
         if !(c.weight.is_finite() && c.weight > 0.0) {
-            return Err(KilnError::spec(format!("mixture component {n} has weight {}; weights must be positive", c.weight))
-                .with_hint("use a positive weight, or remove the component"));
+            return Err(KilnError::spec(format!(
+                "mixture component {n} has weight {}; weights must be positive",
+                c.weight
+            ))
+            .with_hint("use a positive weight, or remove the component"));
         }
         if c.mean.len() != d {
             return Err(KilnError::spec(format!(
@@ -487,12 +534,18 @@ fn validate_mixture(comps: &[RawComponent]) -> Result<Vec<Component>, KilnError>
         }
         let cov = match (&c.cov, &c.sd) {
             (Some(_), Some(_)) => {
-                return Err(KilnError::spec(format!("mixture component {n} gives both \"cov\" and \"sd\""))
-                    .with_hint("keep one: \"cov\" for a full covariance, \"sd\" for a diagonal one"))
+                return Err(KilnError::spec(format!(
+                    "mixture component {n} gives both \"cov\" and \"sd\""
+                ))
+                .with_hint("keep one: \"cov\" for a full covariance, \"sd\" for a diagonal one"))
             }
             (None, None) => {
-                return Err(KilnError::spec(format!("mixture component {n} has neither \"cov\" nor \"sd\""))
-                    .with_hint("add \"sd\": [...] (one standard deviation per unknown) or \"cov\": [[...]]"))
+                return Err(KilnError::spec(format!(
+                    "mixture component {n} has neither \"cov\" nor \"sd\""
+                ))
+                .with_hint(
+                    "add \"sd\": [...] (one standard deviation per unknown) or \"cov\": [[...]]",
+                ))
             }
             (None, Some(sd)) => {
                 if sd.len() != d {
@@ -503,11 +556,17 @@ fn validate_mixture(comps: &[RawComponent]) -> Result<Vec<Component>, KilnError>
                     .with_hint("give one standard deviation per unknown"));
                 }
                 if let Some(s) = sd.iter().find(|s| !(s.is_finite() && **s > 0.0)) {
-                    return Err(KilnError::spec(format!("mixture component {n} has standard deviation {s}"))
-                        .with_hint("standard deviations must be positive"));
+                    return Err(KilnError::spec(format!(
+                        "mixture component {n} has standard deviation {s}"
+                    ))
+                    .with_hint("standard deviations must be positive"));
                 }
                 (0..d)
-                    .map(|i| (0..d).map(|j| if i == j { sd[i] * sd[i] } else { 0.0 }).collect())
+                    .map(|i| {
+                        (0..d)
+                            .map(|j| if i == j { sd[i] * sd[i] } else { 0.0 })
+                            .collect()
+                    })
                     .collect()
             }
             (Some(cov), None) => {
@@ -519,7 +578,10 @@ fn validate_mixture(comps: &[RawComponent]) -> Result<Vec<Component>, KilnError>
                 }
                 for i in 0..d {
                     for j in 0..d {
-                        finite(&format!("a covariance entry of mixture component {n}"), cov[i][j])?;
+                        finite(
+                            &format!("a covariance entry of mixture component {n}"),
+                            cov[i][j],
+                        )?;
                         let (a, b) = (cov[i][j], cov[j][i]);
                         if (a - b).abs() > 1e-12 * (a.abs() + b.abs()).max(1e-300) {
                             return Err(KilnError::spec(format!(
@@ -537,9 +599,15 @@ fn validate_mixture(comps: &[RawComponent]) -> Result<Vec<Component>, KilnError>
             return Err(KilnError::spec(format!(
                 "mixture component {n}: the covariance is not positive definite"
             ))
-            .with_hint("every variance must be positive and every correlation strictly between −1 and 1"));
+            .with_hint(
+                "every variance must be positive and every correlation strictly between −1 and 1",
+            ));
         }
-        out.push(Component { weight: c.weight, mean: c.mean.clone(), cov });
+        out.push(Component {
+            weight: c.weight,
+            mean: c.mean.clone(),
+            cov,
+        });
     }
     Ok(out)
 }
@@ -566,8 +634,10 @@ fn validate_settings(s: &Settings) -> Result<(), KilnError> {
     }
     if let Some(m) = &s.integrator {
         if m != "nuts" && m != "hmc" {
-            return Err(KilnError::spec(format!("setting \"integrator\" is \"{m}\""))
-                .with_hint("use \"nuts\" or \"hmc\""));
+            return Err(
+                KilnError::spec(format!("setting \"integrator\" is \"{m}\""))
+                    .with_hint("use \"nuts\" or \"hmc\""),
+            );
         }
     }
     if let Some(a) = s.target_accept {
@@ -596,16 +666,34 @@ mod tests {
         assert_eq!(s.data_rows, 2);
         assert_eq!(s.data[1].0, "w");
         assert_eq!(s.settings.seed, Some(7));
-        assert_eq!(s.variables[0].bounds, Bounds { lower: Some(0.0), upper: Some(31.4) });
+        assert_eq!(
+            s.variables[0].bounds,
+            Bounds {
+                lower: Some(0.0),
+                upper: Some(31.4)
+            }
+        );
     }
 
     #[test]
     fn unknown_keys_name_the_nearest_allowed_key() {
-        let e = parse_spec("t.json", "{\"variables\": [{\"name\": \"x\"}],\n \"energi\": \"x^2\"}").unwrap_err();
-        assert!(e.message.contains("unknown field `energi`"), "{}", e.message);
+        let e = parse_spec(
+            "t.json",
+            "{\"variables\": [{\"name\": \"x\"}],\n \"energi\": \"x^2\"}",
+        )
+        .unwrap_err();
+        assert!(
+            e.message.contains("unknown field `energi`"),
+            "{}",
+            e.message
+        );
         assert_eq!(e.hint.as_deref(), Some("did you mean `energy`?"));
         assert_eq!(e.location.unwrap().line, 2);
-        let e = parse_spec("t.json", r#"{"variables": [{"name": "x", "low": 0}], "energy": "x"}"#).unwrap_err();
+        let e = parse_spec(
+            "t.json",
+            r#"{"variables": [{"name": "x", "low": 0}], "energy": "x"}"#,
+        )
+        .unwrap_err();
         assert_eq!(e.hint.as_deref(), Some("did you mean `lower`?"));
     }
 
@@ -614,10 +702,19 @@ mod tests {
         let ok = r#"{"mixture": [{"weight": 2, "mean": [0, 1], "sd": [1, 2]}]}"#;
         assert_eq!(parse_spec("m", ok).unwrap().dimension(), 2);
         let bad = r#"{"mixture": [{"weight": 1, "mean": [0, 1], "cov": [[1, 2], [2, 1]]}]}"#;
-        assert!(parse_spec("m", bad).unwrap_err().message.contains("not positive definite"));
+        assert!(parse_spec("m", bad)
+            .unwrap_err()
+            .message
+            .contains("not positive definite"));
         let bad = r#"{"mixture": [{"weight": 0, "mean": [0], "sd": [1]}]}"#;
-        assert!(parse_spec("m", bad).unwrap_err().message.contains("weights must be positive"));
+        assert!(parse_spec("m", bad)
+            .unwrap_err()
+            .message
+            .contains("weights must be positive"));
         let bad = r#"{"mixture": [{"weight": 1, "mean": [0], "sd": [1]}, {"weight": 1, "mean": [0, 1], "sd": [1, 1]}]}"#;
-        assert!(parse_spec("m", bad).unwrap_err().message.contains("mean of length 2"));
+        assert!(parse_spec("m", bad)
+            .unwrap_err()
+            .message
+            .contains("mean of length 2"));
     }
 }

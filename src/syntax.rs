@@ -105,9 +105,8 @@ struct Token {
 
 /// A formula error at `span` of `text`; `source` names the spec field.
 pub fn error_at(source: &str, text: &str, span: Span, message: impl Into<String>) -> KilnError {
-    KilnError::new(ErrorKind::Formula, message).at(Location::in_text(
-        source, text, span.start, span.end,
-    ))
+    KilnError::new(ErrorKind::Formula, message)
+        .at(Location::in_text(source, text, span.start, span.end))
 }
 
 fn describe(tok: &Tok) -> String {
@@ -132,7 +131,9 @@ fn lex(source: &str, text: &str) -> Result<Vec<Token>, KilnError> {
             while i < bytes.len() && bytes[i] != b'\n' {
                 i += 1;
             }
-        } else if c.is_ascii_digit() || (c == b'.' && bytes.get(i + 1).is_some_and(|b| b.is_ascii_digit())) {
+        } else if c.is_ascii_digit()
+            || (c == b'.' && bytes.get(i + 1).is_some_and(|b| b.is_ascii_digit()))
+        {
             let start = i;
             while i < bytes.len() && bytes[i].is_ascii_digit() {
                 i += 1;
@@ -161,7 +162,9 @@ fn lex(source: &str, text: &str) -> Result<Vec<Token>, KilnError> {
             }
             // A number runs into letters, digits or a second point: `1.2.3`, `2x`, `1e`.
             let mut end = i;
-            while end < bytes.len() && (bytes[end].is_ascii_alphanumeric() || bytes[end] == b'_' || bytes[end] == b'.') {
+            while end < bytes.len()
+                && (bytes[end].is_ascii_alphanumeric() || bytes[end] == b'_' || bytes[end] == b'.')
+            {
                 end += 1;
             }
             let span = Span { start, end };
@@ -178,41 +181,85 @@ fn lex(source: &str, text: &str) -> Result<Vec<Token>, KilnError> {
                         &text[i..end]
                     )
                 };
-                return Err(error_at(source, text, span, format!("malformed number `{shown}`")).with_hint(hint));
+                return Err(
+                    error_at(source, text, span, format!("malformed number `{shown}`"))
+                        .with_hint(hint),
+                );
             }
             let value: f64 = text[start..i].parse().map_err(|_| {
-                error_at(source, text, span, format!("malformed number `{}`", &text[start..i]))
+                error_at(
+                    source,
+                    text,
+                    span,
+                    format!("malformed number `{}`", &text[start..i]),
+                )
             })?;
             if !value.is_finite() {
-                return Err(error_at(source, text, span, format!("the number `{}` is too large to represent", &text[start..i]))
-                    .with_hint("numbers must be finite, below about 1.8e308"));
+                return Err(error_at(
+                    source,
+                    text,
+                    span,
+                    format!("the number `{}` is too large to represent", &text[start..i]),
+                )
+                .with_hint("numbers must be finite, below about 1.8e308"));
             }
-            out.push(Token { tok: Tok::Number(value), span });
+            out.push(Token {
+                tok: Tok::Number(value),
+                span,
+            });
         } else if c.is_ascii_alphabetic() || c == b'_' {
             let start = i;
             while i < bytes.len() && (bytes[i].is_ascii_alphanumeric() || bytes[i] == b'_') {
                 i += 1;
             }
             let word = &text[start..i];
-            let tok = if word == "let" { Tok::Let } else { Tok::Name(word.to_string()) };
-            out.push(Token { tok, span: Span { start, end: i } });
+            let tok = if word == "let" {
+                Tok::Let
+            } else {
+                Tok::Name(word.to_string())
+            };
+            out.push(Token {
+                tok,
+                span: Span { start, end: i },
+            });
         } else if b"+-*/^(),;=".contains(&c) {
-            out.push(Token { tok: Tok::Sym(c as char), span: Span { start: i, end: i + 1 } });
+            out.push(Token {
+                tok: Tok::Sym(c as char),
+                span: Span {
+                    start: i,
+                    end: i + 1,
+                },
+            });
             i += 1;
         } else {
             let ch = text[i..].chars().next().unwrap_or('?');
-            let span = Span { start: i, end: i + ch.len_utf8() };
+            let span = Span {
+                start: i,
+                end: i + ch.len_utf8(),
+            };
             let hint = match ch {
                 '*' | '×' => "multiplication is `*`".to_string(),
                 '[' | ']' | '{' | '}' => "group with round parentheses `(` `)`".to_string(),
-                '!' | '&' | '|' | '<' | '>' | '?' => "the formula language has no comparisons or logic; use min, max or abs".to_string(),
+                '!' | '&' | '|' | '<' | '>' | '?' => {
+                    "the formula language has no comparisons or logic; use min, max or abs"
+                        .to_string()
+                }
                 '−' => "use the ASCII minus sign `-`".to_string(),
                 _ => "allowed are numbers, names, + - * / ^ ( ) , ; = and # comments".to_string(),
             };
-            return Err(error_at(source, text, span, format!("unexpected character `{ch}`")).with_hint(hint));
+            return Err(
+                error_at(source, text, span, format!("unexpected character `{ch}`"))
+                    .with_hint(hint),
+            );
         }
     }
-    out.push(Token { tok: Tok::End, span: Span { start: text.len(), end: text.len() } });
+    out.push(Token {
+        tok: Tok::End,
+        span: Span {
+            start: text.len(),
+            end: text.len(),
+        },
+    });
     Ok(out)
 }
 
@@ -246,13 +293,19 @@ impl<'a> Parser<'a> {
             Ok(self.bump().span)
         } else {
             let t = self.peek();
-            Err(self.err(t.span, format!("expected `{c}` {context}, found {}", describe(&t.tok))))
+            Err(self.err(
+                t.span,
+                format!("expected `{c}` {context}, found {}", describe(&t.tok)),
+            ))
         }
     }
     fn node(&self, kind: ExprKind, span: Span, depth: usize) -> Result<Expr, KilnError> {
         if depth > MAX_DEPTH {
             return Err(self
-                .err(span, format!("the formula is nested too deeply (more than {MAX_DEPTH} levels)"))
+                .err(
+                    span,
+                    format!("the formula is nested too deeply (more than {MAX_DEPTH} levels)"),
+                )
                 .with_hint("split it into parts with `let name = …;` definitions"));
         }
         Ok(Expr { kind, span, depth })
@@ -262,7 +315,10 @@ impl<'a> Parser<'a> {
         if self.nesting > MAX_DEPTH {
             let span = self.peek().span;
             return Err(self
-                .err(span, format!("the formula is nested too deeply (more than {MAX_DEPTH} levels)"))
+                .err(
+                    span,
+                    format!("the formula is nested too deeply (more than {MAX_DEPTH} levels)"),
+                )
                 .with_hint("split it into parts with `let name = …;` definitions"));
         }
         Ok(())
@@ -277,7 +333,10 @@ impl<'a> Parser<'a> {
                 Tok::Name(n) => (n, t.span),
                 other => {
                     return Err(self
-                        .err(t.span, format!("expected a name after `let`, found {}", describe(&other)))
+                        .err(
+                            t.span,
+                            format!("expected a name after `let`, found {}", describe(&other)),
+                        )
                         .with_hint("write `let name = expression;`"))
                 }
             };
@@ -286,12 +345,22 @@ impl<'a> Parser<'a> {
             if !self.is_sym(';') {
                 let t = self.peek();
                 return Err(self
-                    .err(t.span, format!("expected `;` to end the definition of `{name}`, found {}", describe(&t.tok)))
+                    .err(
+                        t.span,
+                        format!(
+                            "expected `;` to end the definition of `{name}`, found {}",
+                            describe(&t.tok)
+                        ),
+                    )
                     .with_hint(format!("end it with a semicolon: `let {name} = …;`")));
             }
             self.bump();
             let _ = let_span;
-            lets.push(Let { name, name_span, value });
+            lets.push(Let {
+                name,
+                name_span,
+                value,
+            });
         }
         if self.peek().tok == Tok::End {
             let span = self.peek().span;
@@ -308,15 +377,28 @@ impl<'a> Parser<'a> {
         let t = self.peek().clone();
         match t.tok {
             Tok::End => Ok(Program { lets, body }),
-            Tok::Sym(')') => Err(self.err(t.span, "unmatched `)`").with_hint("remove it or add the `(` it closes")),
+            Tok::Sym(')') => Err(self
+                .err(t.span, "unmatched `)`")
+                .with_hint("remove it or add the `(` it closes")),
             Tok::Sym(';') => Err(self
                 .err(t.span, "unexpected `;` after the final expression")
-                .with_hint("only `let` definitions end with `;`; the final expression stands alone")),
+                .with_hint(
+                    "only `let` definitions end with `;`; the final expression stands alone",
+                )),
             Tok::Let => Err(self
-                .err(t.span, "`let` definitions must come before the final expression")
+                .err(
+                    t.span,
+                    "`let` definitions must come before the final expression",
+                )
                 .with_hint("end the previous part with `;` or move the definition up")),
             other => Err(self
-                .err(t.span, format!("expected an operator or the end of the formula, found {}", describe(&other)))
+                .err(
+                    t.span,
+                    format!(
+                        "expected an operator or the end of the formula, found {}",
+                        describe(&other)
+                    ),
+                )
                 .with_hint("is an operator such as `*` or `+` missing?")),
         }
     }
@@ -336,7 +418,11 @@ impl<'a> Parser<'a> {
             let rhs = self.term()?;
             let span = lhs.span.to(rhs.span);
             let depth = 1 + lhs.depth.max(rhs.depth);
-            lhs = self.node(ExprKind::Binary(op, Box::new(lhs), Box::new(rhs)), span, depth)?;
+            lhs = self.node(
+                ExprKind::Binary(op, Box::new(lhs), Box::new(rhs)),
+                span,
+                depth,
+            )?;
         }
         self.nesting -= 1;
         Ok(lhs)
@@ -356,7 +442,11 @@ impl<'a> Parser<'a> {
             let rhs = self.unary()?;
             let span = lhs.span.to(rhs.span);
             let depth = 1 + lhs.depth.max(rhs.depth);
-            lhs = self.node(ExprKind::Binary(op, Box::new(lhs), Box::new(rhs)), span, depth)?;
+            lhs = self.node(
+                ExprKind::Binary(op, Box::new(lhs), Box::new(rhs)),
+                span,
+                depth,
+            )?;
         }
         Ok(lhs)
     }
@@ -386,7 +476,11 @@ impl<'a> Parser<'a> {
             self.nesting -= 1;
             let span = base.span.to(exponent.span);
             let depth = 1 + base.depth.max(exponent.depth);
-            return self.node(ExprKind::Binary(BinaryOp::Pow, Box::new(base), Box::new(exponent)), span, depth);
+            return self.node(
+                ExprKind::Binary(BinaryOp::Pow, Box::new(base), Box::new(exponent)),
+                span,
+                depth,
+            );
         }
         Ok(base)
     }
@@ -472,12 +566,21 @@ pub fn parse(source: &str, text: &str) -> Result<Program, KilnError> {
     if text.len() > MAX_FORMULA_BYTES {
         return Err(KilnError::new(
             ErrorKind::Limit,
-            format!("the `{source}` formula is {} bytes long; the limit is {MAX_FORMULA_BYTES}", text.len()),
+            format!(
+                "the `{source}` formula is {} bytes long; the limit is {MAX_FORMULA_BYTES}",
+                text.len()
+            ),
         )
         .with_hint("move repeated terms into data columns and `sum(…)`"));
     }
     let toks = lex(source, text)?;
-    let mut p = Parser { source, text, toks, pos: 0, nesting: 0 };
+    let mut p = Parser {
+        source,
+        text,
+        toks,
+        pos: 0,
+        nesting: 0,
+    };
     p.program()
 }
 
@@ -501,7 +604,10 @@ mod tests {
                 format!("({}{o}{})", show(a), show(b))
             }
             ExprKind::Call { name, args, .. } => {
-                format!("{name}({})", args.iter().map(show).collect::<Vec<_>>().join(","))
+                format!(
+                    "{name}({})",
+                    args.iter().map(show).collect::<Vec<_>>().join(",")
+                )
             }
         }
     }

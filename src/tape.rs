@@ -103,14 +103,23 @@ impl Tape {
         for (i, n) in nodes.iter().enumerate() {
             flags[i] = match *n {
                 Node::Const(_) => Flags::default(),
-                Node::Var(_) => Flags { var: true, data: false },
-                Node::Data(_) => Flags { var: false, data: true },
+                Node::Var(_) => Flags {
+                    var: true,
+                    data: false,
+                },
+                Node::Data(_) => Flags {
+                    var: false,
+                    data: true,
+                },
                 Node::Unary(_, a) => flags[a as usize],
                 Node::Binary(_, a, b) => Flags {
                     var: flags[a as usize].var || flags[b as usize].var,
                     data: flags[a as usize].data || flags[b as usize].data,
                 },
-                Node::Sum(b) => Flags { var: flags[b as usize].var, data: false },
+                Node::Sum(b) => Flags {
+                    var: flags[b as usize].var,
+                    data: false,
+                },
             };
         }
 
@@ -165,7 +174,11 @@ impl Tape {
             &mut data_only_cache,
         );
         let outer = finish(outer, root, &mut sums);
-        Tape { n_vars, outer, sums }
+        Tape {
+            n_vars,
+            outer,
+            sums,
+        }
     }
 
     pub fn n_vars(&self) -> usize {
@@ -183,12 +196,21 @@ impl Tape {
     }
 }
 
+/// Evaluates a data-only node over every row (memoised in the cache it is given).
+type DataOnlyEval<'a> = dyn FnMut(NodeId, &mut HashMap<NodeId, Vec<f64>>) -> Vec<f64> + 'a;
+
 enum Replacement {
     Const(f64),
     Times(f64, NodeId),
 }
 
-fn eval_row(nodes: &[Node], id: NodeId, data: &DataTable, row: usize, memo: &mut HashMap<NodeId, f64>) -> f64 {
+fn eval_row(
+    nodes: &[Node],
+    id: NodeId,
+    data: &DataTable,
+    row: usize,
+    memo: &mut HashMap<NodeId, f64>,
+) -> f64 {
     if let Some(&v) = memo.get(&id) {
         return v;
     }
@@ -259,14 +281,27 @@ fn emit_outer(
     seg: &mut SegBuilder,
     sums: &mut Vec<SumLoop>,
     data: &DataTable,
-    eval_data_only: &mut dyn FnMut(NodeId, &mut HashMap<NodeId, Vec<f64>>) -> Vec<f64>,
+    eval_data_only: &mut DataOnlyEval,
     cache: &mut HashMap<NodeId, Vec<f64>>,
 ) -> u32 {
     if let Some(&s) = seg.slot_of.get(&id) {
         return s;
     }
-    let mut rec = |child: NodeId, seg: &mut SegBuilder, sums: &mut Vec<SumLoop>, cache: &mut HashMap<NodeId, Vec<f64>>| {
-        emit_outer(child, nodes, flags, replaced, seg, sums, data, eval_data_only, cache)
+    let mut rec = |child: NodeId,
+                   seg: &mut SegBuilder,
+                   sums: &mut Vec<SumLoop>,
+                   cache: &mut HashMap<NodeId, Vec<f64>>| {
+        emit_outer(
+            child,
+            nodes,
+            flags,
+            replaced,
+            seg,
+            sums,
+            data,
+            eval_data_only,
+            cache,
+        )
     };
     let slot = match (replaced.get(&id), nodes[id as usize]) {
         (Some(Replacement::Const(v)), _) => const_slot(seg, *v),
@@ -297,7 +332,14 @@ fn emit_outer(
             let mut sub = SegBuilder::new();
             let mut invariant: Vec<NodeId> = Vec::new();
             let mut columns: Vec<NodeId> = Vec::new();
-            collect_row_inputs(body, nodes, flags, &mut invariant, &mut columns, &mut Vec::new());
+            collect_row_inputs(
+                body,
+                nodes,
+                flags,
+                &mut invariant,
+                &mut columns,
+                &mut Vec::new(),
+            );
             // Inputs: invariants first, then data columns, in a fixed order.
             for &n in &invariant {
                 input_slot(&mut sub, n);
@@ -307,8 +349,12 @@ fn emit_outer(
             }
             let root = emit_row(body, nodes, flags, &mut sub);
             let sub_seg = finish(sub, root, &mut []);
-            let outer_inputs: Vec<u32> = invariant.iter().map(|&n| rec(n, seg, sums, cache)).collect();
-            let col_values: Vec<Vec<f64>> = columns.iter().map(|&c| eval_data_only(c, cache)).collect();
+            let outer_inputs: Vec<u32> = invariant
+                .iter()
+                .map(|&n| rec(n, seg, sums, cache))
+                .collect();
+            let col_values: Vec<Vec<f64>> =
+                columns.iter().map(|&c| eval_data_only(c, cache)).collect();
             let mut row_major = Vec::with_capacity(columns.len() * data.rows);
             for r in 0..data.rows {
                 for c in &col_values {
@@ -425,7 +471,14 @@ fn finish(b: SegBuilder, root: u32, sums: &mut [SumLoop]) -> Segment {
 }
 
 #[inline(always)]
-fn forward(code: &[Ins], vals: &mut [f64], first_code: usize, sums: &mut SumState, tape_sums: &[SumLoop], grad: bool) {
+fn forward(
+    code: &[Ins],
+    vals: &mut [f64],
+    first_code: usize,
+    sums: &mut SumState,
+    tape_sums: &[SumLoop],
+    grad: bool,
+) {
     for (k, ins) in code.iter().enumerate() {
         let v = match *ins {
             Ins::Un(op, a) => op.apply(vals[a as usize]),
@@ -439,7 +492,14 @@ fn forward(code: &[Ins], vals: &mut [f64], first_code: usize, sums: &mut SumStat
 }
 
 #[inline(always)]
-fn reverse(code: &[Ins], vals: &[f64], adj: &mut [f64], first_code: usize, sums: &SumState, tape_sums: &[SumLoop]) {
+fn reverse(
+    code: &[Ins],
+    vals: &[f64],
+    adj: &mut [f64],
+    first_code: usize,
+    sums: &SumState,
+    tape_sums: &[SumLoop],
+) {
     for k in (0..code.len()).rev() {
         let o = first_code + k;
         let g = adj[o];
@@ -504,7 +564,11 @@ impl SumState {
         let first_code = seg.first_code();
         let root = seg.root as usize;
         let mut total = 0.0;
-        let mut no_sums = SumState { vals: Vec::new(), adj: Vec::new(), grads: Vec::new() };
+        let mut no_sums = SumState {
+            vals: Vec::new(),
+            adj: Vec::new(),
+            grads: Vec::new(),
+        };
         for r in 0..lp.rows {
             let row = &lp.data[r * lp.n_cols..(r + 1) * lp.n_cols];
             vals[first + n_inv..first + n_inv + lp.n_cols].copy_from_slice(row);
@@ -547,10 +611,23 @@ impl Evaluator {
                     v
                 })
                 .collect(),
-            adj: tape.sums.iter().map(|s| vec![0.0; s.seg.n_slots()]).collect(),
-            grads: tape.sums.iter().map(|s| vec![0.0; s.outer_inputs.len()]).collect(),
+            adj: tape
+                .sums
+                .iter()
+                .map(|s| vec![0.0; s.seg.n_slots()])
+                .collect(),
+            grads: tape
+                .sums
+                .iter()
+                .map(|s| vec![0.0; s.outer_inputs.len()])
+                .collect(),
         };
-        Evaluator { tape, vals, adj, sums }
+        Evaluator {
+            tape,
+            vals,
+            adj,
+            sums,
+        }
     }
 
     pub fn tape(&self) -> &Tape {
@@ -566,7 +643,14 @@ impl Evaluator {
     pub fn value(&mut self, x: &[f64]) -> f64 {
         self.load(x);
         let t = &*self.tape;
-        forward(&t.outer.code, &mut self.vals, t.outer.first_code(), &mut self.sums, &t.sums, false);
+        forward(
+            &t.outer.code,
+            &mut self.vals,
+            t.outer.first_code(),
+            &mut self.sums,
+            &t.sums,
+            false,
+        );
         self.vals[t.outer.root as usize]
     }
 
@@ -575,11 +659,25 @@ impl Evaluator {
         self.load(x);
         let t = &*self.tape;
         let first_code = t.outer.first_code();
-        forward(&t.outer.code, &mut self.vals, first_code, &mut self.sums, &t.sums, true);
+        forward(
+            &t.outer.code,
+            &mut self.vals,
+            first_code,
+            &mut self.sums,
+            &t.sums,
+            true,
+        );
         self.adj.iter_mut().for_each(|a| *a = 0.0);
         let root = t.outer.root as usize;
         self.adj[root] = 1.0;
-        reverse(&t.outer.code, &self.vals, &mut self.adj, first_code, &self.sums, &t.sums);
+        reverse(
+            &t.outer.code,
+            &self.vals,
+            &mut self.adj,
+            first_code,
+            &self.sums,
+            &t.sums,
+        );
         let first = t.outer.first_input;
         grad[..t.n_vars].copy_from_slice(&self.adj[first..first + t.n_vars]);
         self.vals[root]
@@ -599,7 +697,14 @@ mod tests {
         let rows = columns.first().map_or(0, |c| c.len());
         let prog = parse("energy", text).unwrap();
         let g = check("energy", text, &prog, &vars, &names, rows).unwrap();
-        let tape = Tape::compile(&g, vars.len(), &DataTable { columns: &columns, rows });
+        let tape = Tape::compile(
+            &g,
+            vars.len(),
+            &DataTable {
+                columns: &columns,
+                rows,
+            },
+        );
         Evaluator::new(Arc::new(tape))
     }
 
@@ -625,13 +730,21 @@ mod tests {
         );
         let (x, y) = (1.7, 0.3);
         let s2 = crate::maths::exp(2.0 * y);
-        let want: f64 = len.iter().zip(&w).map(|(l, w)| (l - x) * (l - x) / (2.0 * s2) + crate::maths::ln(*w)).sum::<f64>() + 3.0 * x;
+        let want: f64 = len
+            .iter()
+            .zip(&w)
+            .map(|(l, w)| (l - x) * (l - x) / (2.0 * s2) + crate::maths::ln(*w))
+            .sum::<f64>()
+            + 3.0 * x;
         let gx: f64 = len.iter().map(|l| -(l - x) / s2).sum::<f64>() + 3.0;
         let gy: f64 = len.iter().map(|l| -(l - x) * (l - x) / s2).sum();
         let mut g = [0.0; 2];
         let v = ev.value_grad(&[x, y], &mut g);
         assert!((v - want).abs() < 1e-12, "{v} {want}");
-        assert!((g[0] - gx).abs() < 1e-12 && (g[1] - gy).abs() < 1e-12, "{g:?} {gx} {gy}");
+        assert!(
+            (g[0] - gx).abs() < 1e-12 && (g[1] - gy).abs() < 1e-12,
+            "{g:?} {gx} {gy}"
+        );
     }
 
     #[test]

@@ -73,7 +73,11 @@ impl Transform {
             Transform::Interval(l, u) => {
                 let s = logistic(z);
                 let t = logistic(-z);
-                let x = if z < 0.0 { l + (u - l) * s } else { u - (u - l) * t };
+                let x = if z < 0.0 {
+                    l + (u - l) * s
+                } else {
+                    u - (u - l) * t
+                };
                 let log_jac = ln(u - l) - softplus(-z) - softplus(z);
                 (x, (u - l) * s * t, log_jac, t - s)
             }
@@ -97,8 +101,14 @@ impl Transform {
 
 #[derive(Clone, Debug)]
 enum Kind {
-    Formula { tape: Arc<Tape>, sign: f64 },
-    Mixture { mixture: Arc<Mixture>, total_weight: f64 },
+    Formula {
+        tape: Arc<Tape>,
+        sign: f64,
+    },
+    Mixture {
+        mixture: Arc<Mixture>,
+        total_weight: f64,
+    },
 }
 
 /// A density over the unknowns, ready to evaluate in unconstrained coordinates.
@@ -126,7 +136,11 @@ impl Target {
     /// Parses, checks and compiles the spec's model.
     pub fn from_spec(spec: &Spec) -> Result<Target, KilnError> {
         let names = spec.names();
-        let transforms = spec.variables.iter().map(|v| Transform::from_bounds(v.bounds)).collect();
+        let transforms = spec
+            .variables
+            .iter()
+            .map(|v| Transform::from_bounds(v.bounds))
+            .collect();
         let kind = match &spec.model {
             Model::Energy(text) | Model::LogDensity(text) => {
                 let field = spec.model.field();
@@ -137,25 +151,44 @@ impl Target {
                 let tape = Tape::compile(
                     &graph,
                     names.len(),
-                    &DataTable { columns: &columns, rows: spec.data_rows },
+                    &DataTable {
+                        columns: &columns,
+                        rows: spec.data_rows,
+                    },
                 );
-                let sign = if matches!(spec.model, Model::Energy(_)) { 1.0 } else { -1.0 };
-                Kind::Formula { tape: Arc::new(tape), sign }
+                let sign = if matches!(spec.model, Model::Energy(_)) {
+                    1.0
+                } else {
+                    -1.0
+                };
+                Kind::Formula {
+                    tape: Arc::new(tape),
+                    sign,
+                }
             }
             Model::Mixture(comps) => {
                 let gs: Vec<Gaussian> = comps
                     .iter()
                     .map(|c| {
-                        Gaussian::new(&c.mean, &c.cov)
-                            .ok_or_else(|| KilnError::spec("a mixture covariance is not positive definite"))
+                        Gaussian::new(&c.mean, &c.cov).ok_or_else(|| {
+                            KilnError::spec("a mixture covariance is not positive definite")
+                        })
                     })
                     .collect::<Result<_, _>>()?;
                 let weights: Vec<f64> = comps.iter().map(|c| c.weight).collect();
                 let total_weight = weights.iter().sum();
-                Kind::Mixture { mixture: Arc::new(Mixture::new(gs, &weights)), total_weight }
+                Kind::Mixture {
+                    mixture: Arc::new(Mixture::new(gs, &weights)),
+                    total_weight,
+                }
             }
         };
-        Ok(Target { names, transforms, data_rows: spec.data_rows, kind })
+        Ok(Target {
+            names,
+            transforms,
+            data_rows: spec.data_rows,
+            kind,
+        })
     }
 
     pub fn dim(&self) -> usize {
@@ -165,7 +198,10 @@ impl Target {
     /// The exact answers, for a mixture target.
     pub fn mixture_truth(&self) -> Option<MixtureTruth> {
         match &self.kind {
-            Kind::Mixture { mixture, total_weight } => {
+            Kind::Mixture {
+                mixture,
+                total_weight,
+            } => {
                 let (mean, cov) = mixture.moments();
                 Some(MixtureTruth {
                     log_z: ln(*total_weight),
@@ -181,26 +217,35 @@ impl Target {
 
     /// The unknowns' values in the user's coordinates.
     pub fn to_user(&self, z: &[f64]) -> Vec<f64> {
-        z.iter().zip(&self.transforms).map(|(z, t)| t.to_user(*z)).collect()
+        z.iter()
+            .zip(&self.transforms)
+            .map(|(z, t)| t.to_user(*z))
+            .collect()
     }
 
     /// z for user coordinates `x`; `None` outside the support.
     pub fn to_unconstrained(&self, x: &[f64]) -> Option<Vec<f64>> {
-        x.iter().zip(&self.transforms).map(|(x, t)| t.to_unconstrained(*x)).collect()
+        x.iter()
+            .zip(&self.transforms)
+            .map(|(x, t)| t.to_unconstrained(*x))
+            .collect()
     }
 
     /// Whether every unknown has both bounds.
     pub fn is_box(&self) -> bool {
-        self.transforms.iter().all(|t| matches!(t, Transform::Interval(..)))
+        self.transforms
+            .iter()
+            .all(|t| matches!(t, Transform::Interval(..)))
     }
 
     pub fn evaluator(&self) -> TargetEval {
         let d = self.dim();
         let inner = match &self.kind {
             Kind::Formula { tape, sign } => Inner::Formula(Evaluator::new(tape.clone()), *sign),
-            Kind::Mixture { mixture, total_weight } => {
-                Inner::Mixture(mixture.clone(), mixture.scratch(), ln(*total_weight))
-            }
+            Kind::Mixture {
+                mixture,
+                total_weight,
+            } => Inner::Mixture(mixture.clone(), mixture.scratch(), ln(*total_weight)),
         };
         TargetEval {
             transforms: self.transforms.clone(),
@@ -302,6 +347,18 @@ impl TargetEval {
     }
 }
 
+impl Target {
+    /// Tape instructions per evaluation (data rows counted); a cost measure for budgets.
+    pub fn evaluator_work(&self) -> usize {
+        match &self.kind {
+            Kind::Formula { tape, .. } => tape.work_per_call().max(1),
+            Kind::Mixture { mixture, .. } => {
+                mixture.components.len() * (self.dim() + 2) * (self.dim() + 2)
+            }
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -316,7 +373,10 @@ mod tests {
         ] {
             for &z in &[-3.0, -0.2, 0.0, 0.7, 4.0] {
                 let (x, dxdz, lj, dlj) = t.with_jacobian(z);
-                assert!((t.to_unconstrained(x).unwrap() - z).abs() < 1e-9, "{t:?} {z}");
+                assert!(
+                    (t.to_unconstrained(x).unwrap() - z).abs() < 1e-9,
+                    "{t:?} {z}"
+                );
                 let h = 1e-6;
                 let fd = (t.to_user(z + h) - t.to_user(z - h)) / (2.0 * h);
                 assert!((fd - dxdz).abs() < 1e-6 * dxdz.abs().max(1.0));
@@ -328,15 +388,5 @@ mod tests {
         // Far out, an interval stays strictly inside its bounds.
         let t = Transform::Interval(0.0, 1.0);
         assert!(t.to_user(30.0) < 1.0 && t.to_user(-30.0) > 0.0);
-    }
-}
-
-impl Target {
-    /// Tape instructions per evaluation (data rows counted); a cost measure for budgets.
-    pub fn evaluator_work(&self) -> usize {
-        match &self.kind {
-            Kind::Formula { tape, .. } => tape.work_per_call().max(1),
-            Kind::Mixture { mixture, .. } => mixture.components.len() * (self.dim() + 2) * (self.dim() + 2),
-        }
     }
 }

@@ -18,13 +18,17 @@ struct JsError<'a> {
 }
 
 fn to_js_error(e: &KilnError) -> JsValue {
-    let v = JsError { error: e, rendered: e.render() };
+    let v = JsError {
+        error: e,
+        rendered: e.render(),
+    };
     serde_wasm_bindgen::to_value(&v).unwrap_or_else(|_| JsValue::from_str(&e.render()))
 }
 
 fn to_js<T: Serialize>(v: &T) -> Result<JsValue, JsValue> {
     let ser = serde_wasm_bindgen::Serializer::json_compatible();
-    v.serialize(&ser).map_err(|e| JsValue::from_str(&format!("could not pass the result to the page: {e}")))
+    v.serialize(&ser)
+        .map_err(|e| JsValue::from_str(&format!("could not pass the result to the page: {e}")))
 }
 
 /// `kiln check` on a spec given as JSON text.

@@ -16,7 +16,11 @@ fn target(spec: &str) -> Target {
 /// A random formula over x, y, z; `depth` bounds its size.
 fn random_formula(rng: &mut Stream, depth: usize, data: bool) -> String {
     let leaf = |rng: &mut Stream| -> String {
-        let names = if data { vec!["x", "y", "z", "u", "v"] } else { vec!["x", "y", "z"] };
+        let names = if data {
+            vec!["x", "y", "z", "u", "v"]
+        } else {
+            vec!["x", "y", "z"]
+        };
         match rng.below(4) {
             0 => format!("{:.3}", 4.0 * rng.uniform() - 2.0),
             _ => names[rng.below(names.len())].to_string(),
@@ -106,7 +110,10 @@ fn random_formulas_have_exact_gradients() {
         }
     }
     // Guard against a vacuous pass: most random cases must have been checked.
-    assert!(checked > total * 3 / 4, "only {checked} of {total} cases checked");
+    assert!(
+        checked > total * 3 / 4,
+        "only {checked} of {total} cases checked"
+    );
 }
 
 #[test]
@@ -114,8 +121,12 @@ fn gradients_through_data_sums_bounds_and_lets() {
     let mut rng = Stream::new(99, Purpose::Check, 1);
     let mut checked = 0;
     let total = 150;
-    let u: Vec<String> = (0..7).map(|i| format!("{:.2}", -1.0 + 0.37 * i as f64)).collect();
-    let v: Vec<String> = (0..7).map(|i| format!("{:.2}", 0.5 + 0.11 * i as f64)).collect();
+    let u: Vec<String> = (0..7)
+        .map(|i| format!("{:.2}", -1.0 + 0.37 * i as f64))
+        .collect();
+    let v: Vec<String> = (0..7)
+        .map(|i| format!("{:.2}", 0.5 + 0.11 * i as f64))
+        .collect();
     for case in 0..total {
         let inner = random_formula(&mut rng, 1 + case % 3, true);
         let outer = random_formula(&mut rng, 1, false);
@@ -132,7 +143,10 @@ fn gradients_through_data_sums_bounds_and_lets() {
             checked += 1;
         }
     }
-    assert!(checked > total * 3 / 4, "only {checked} of {total} cases checked");
+    assert!(
+        checked > total * 3 / 4,
+        "only {checked} of {total} cases checked"
+    );
 }
 
 #[test]
@@ -147,18 +161,31 @@ fn hand_derived_gradients() {
     let (x, y) = (0.7f64, -1.3f64);
     let (ts, ws) = ([0.5, 1.0, 2.0], [1.0, -2.0, 0.25]);
     let e_want = (x * x - 1.0).powi(2) + 3.0 * x * y + (1.0 + y * y).ln()
-        - ts.iter().zip(&ws).map(|(t, w)| w * (-x * t).exp()).sum::<f64>();
-    let gx = 4.0 * x * (x * x - 1.0) + 3.0 * y + ts.iter().zip(&ws).map(|(t, w)| w * t * (-x * t).exp()).sum::<f64>();
+        - ts.iter()
+            .zip(&ws)
+            .map(|(t, w)| w * (-x * t).exp())
+            .sum::<f64>();
+    let gx = 4.0 * x * (x * x - 1.0)
+        + 3.0 * y
+        + ts.iter()
+            .zip(&ws)
+            .map(|(t, w)| w * t * (-x * t).exp())
+            .sum::<f64>();
     let gy = 3.0 * x + 2.0 * y / (1.0 + y * y);
     let mut g = [0.0; 2];
     let e = t.evaluator().energy_grad(&[x, y], &mut g);
     assert!((e - e_want).abs() < 1e-12, "{e} vs {e_want}");
-    assert!((g[0] - gx).abs() < 1e-12 && (g[1] - gy).abs() < 1e-12, "{g:?} vs {gx} {gy}");
+    assert!(
+        (g[0] - gx).abs() < 1e-12 && (g[1] - gy).abs() < 1e-12,
+        "{g:?} vs {gx} {gy}"
+    );
 
     // A log density on a bounded unknown: log p(x) = a log x + b log(1 - x) on (0, 1).
     // In z = logit(x), E(z) = -(a+1) log x - (b+1) log(1-x) (Jacobian x(1-x) added), and
     // dE/dz = -(a+1)(1-x) + (b+1) x.
-    let t = target(r#"{"variables": [{"name": "x", "lower": 0, "upper": 1}], "log_density": "2.5*log(x) + 0.5*log(1 - x)"}"#);
+    let t = target(
+        r#"{"variables": [{"name": "x", "lower": 0, "upper": 1}], "log_density": "2.5*log(x) + 0.5*log(1 - x)"}"#,
+    );
     let z = 0.4f64;
     let x = 1.0 / (1.0 + (-z).exp());
     let mut g = [0.0];
@@ -167,10 +194,12 @@ fn hand_derived_gradients() {
     assert!((g[0] - (-(3.5) * (1.0 - x) + 1.5 * x)).abs() < 1e-12);
 
     // Special functions: d/dx lgamma(x) = digamma(x); at x = 1, −γ (Euler's constant).
-    let t = target(r#"{"variables": [{"name": "x"}], "energy": "lgamma(x) + erf(x) + atan2(x, 2)"}"#);
+    let t =
+        target(r#"{"variables": [{"name": "x"}], "energy": "lgamma(x) + erf(x) + atan2(x, 2)"}"#);
     let mut g = [0.0];
     t.evaluator().energy_grad(&[1.0], &mut g);
-    let want = -0.577_215_664_901_532_9 + 2.0 / std::f64::consts::PI.sqrt() * (-1.0f64).exp() + 2.0 / 5.0;
+    let want =
+        -0.577_215_664_901_532_9 + 2.0 / std::f64::consts::PI.sqrt() * (-1.0f64).exp() + 2.0 / 5.0;
     assert!((g[0] - want).abs() < 1e-13, "{} vs {want}", g[0]);
 }
 
