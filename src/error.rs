@@ -136,15 +136,39 @@ impl KilnError {
                 loc.source, loc.line, loc.column
             ));
             out.push_str(&format!("{pad} |\n"));
-            out.push_str(&format!("{number} | {}\n", loc.line_text));
+            // Long lines are shown as a window around the caret.
+            const WINDOW: usize = 70;
+            const WHOLE: usize = 160;
+            let chars: Vec<char> = loc.line_text.chars().collect();
+            let col = (loc.column - 1).min(chars.len());
+            let long = chars.len() > WHOLE;
+            let from = if long { col.saturating_sub(WINDOW) } else { 0 };
+            let width = if long {
+                loc.width.min(WINDOW)
+            } else {
+                loc.width
+            };
+            let to = if long {
+                (col + width + WINDOW).min(chars.len())
+            } else {
+                chars.len()
+            };
+            let mut shown: String = chars[from..to].iter().collect();
+            let mut lead_chars: Vec<char> = chars[from..col].to_vec();
+            if from > 0 {
+                shown.insert(0, '…');
+                lead_chars.insert(0, ' ');
+            }
+            if to < chars.len() {
+                shown.push('…');
+            }
+            out.push_str(&format!("{number} | {shown}\n"));
             // Tabs in the line keep their width under the caret.
-            let lead: String = loc
-                .line_text
-                .chars()
-                .take(loc.column - 1)
-                .map(|c| if c == '\t' { '\t' } else { ' ' })
+            let lead: String = lead_chars
+                .iter()
+                .map(|&c| if c == '\t' { '\t' } else { ' ' })
                 .collect();
-            out.push_str(&format!("{pad} | {lead}{}\n", "^".repeat(loc.width)));
+            out.push_str(&format!("{pad} | {lead}{}\n", "^".repeat(width)));
         }
         if let Some(hint) = &self.hint {
             out.push_str(&format!("  = hint: {hint}\n"));

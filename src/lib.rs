@@ -30,6 +30,7 @@ pub mod pipeline;
 pub mod quadrature;
 pub mod refit;
 pub mod report;
+pub mod sampler;
 pub mod spec;
 pub mod syntax;
 pub mod tape;

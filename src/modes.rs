@@ -121,21 +121,34 @@ enum Outcome {
         f: f64,
         inv_hessian_diag: Vec<f64>,
     },
-    /// The energy kept falling while `z` ran off towards the edge of the space.
-    Escaped { z: Vec<f64>, from: Vec<f64> },
+    /// The energy kept falling while coordinate `along` ran off towards the edge of the space.
+    Escaped { z: Vec<f64>, along: usize },
     /// The energy was −∞ here.
     Infinite { z: Vec<f64> },
-    /// The start itself had no finite energy.
-    BadStart { energy: f64 },
+    /// The start itself had no finite energy (or, with `gradient_only`, a non-finite gradient).
+    BadStart { energy: f64, gradient_only: bool },
 }
 
 /// How far out `z` may go before we call it an escape.
-fn beyond_edge(z: &[f64], transforms: &[Transform]) -> bool {
-    z.iter().zip(transforms).any(|(z, t)| match t {
+fn coordinate_beyond_edge(z: f64, t: &Transform) -> bool {
+    match t {
         Transform::Free => z.abs() > 1e12,
-        Transform::Lower(_) | Transform::Upper(_) => *z > 300.0 || *z < -60.0,
+        Transform::Lower(_) | Transform::Upper(_) => !(-60.0..=300.0).contains(&z),
         Transform::Interval(..) => z.abs() > 60.0,
-    })
+    }
+}
+
+fn beyond_edge(z: &[f64], transforms: &[Transform]) -> bool {
+    z.iter()
+        .zip(transforms)
+        .any(|(z, t)| coordinate_beyond_edge(*z, t))
+}
+
+/// The first coordinate that is past the edge of the space with the energy still falling
+/// outwards along it (gradient pointing back inwards), if any.
+fn falling_outwards(z: &[f64], g: &[f64], transforms: &[Transform]) -> Option<usize> {
+    (0..z.len())
+        .find(|&i| coordinate_beyond_edge(z[i], &transforms[i]) && g[i] * z[i].signum() < 0.0)
 }
 
 struct Objective<'a> {
@@ -277,7 +290,10 @@ fn minimize(ev: &mut TargetEval, z0: Vec<f64>, transforms: &[Transform]) -> Outc
         return Outcome::Infinite { z: z0 };
     }
     if !f.is_finite() || g.iter().any(|v| !v.is_finite()) {
-        return Outcome::BadStart { energy: f };
+        return Outcome::BadStart {
+            energy: f,
+            gradient_only: f.is_finite(),
+        };
     }
     let mut z = z0.clone();
     let mut h: Vec<f64> = vec![0.0; d * d];
@@ -326,16 +342,22 @@ fn minimize(ev: &mut TargetEval, z0: Vec<f64>, transforms: &[Transform]) -> Outc
         };
         let z_new = axpy(&z, a, &p);
         if f_new == f64::NEG_INFINITY {
+            // −∞ because a coordinate ran off to infinity is an escape, not a singularity.
+            if let Some(i) = (0..d).find(|&i| coordinate_beyond_edge(z_new[i], &transforms[i])) {
+                return Outcome::Escaped { z: z_new, along: i };
+            }
             return Outcome::Infinite { z: z_new };
         }
-        // Past the edge of the space and still falling outwards, several steps running: escaped.
-        if beyond_edge(&z_new, transforms) && dot(&g_new, &p) < 0.0 {
-            outside += 1;
-            if outside >= 3 {
-                return Outcome::Escaped { z: z_new, from: z0 };
+        // Past the edge along a coordinate and still falling outwards along it, several steps
+        // running: escaped.
+        match falling_outwards(&z_new, &g_new, transforms) {
+            Some(i) => {
+                outside += 1;
+                if outside >= 3 {
+                    return Outcome::Escaped { z: z_new, along: i };
+                }
             }
-        } else {
-            outside = 0;
+            None => outside = 0,
         }
         let s: Vec<f64> = (0..d).map(|i| z_new[i] - z[i]).collect();
         let y: Vec<f64> = (0..d).map(|i| g_new[i] - g[i]).collect();
@@ -427,10 +449,19 @@ fn probe(
         let p = axpy(z, t, v);
         (ev.energy(&p) - f0, p)
     };
+    let tol = 1e-7 * (1.0 + f0.abs());
+    // A lower point past the edge of the space means the energy falls for ever that way.
+    let lower = |p: Vec<f64>| {
+        if beyond_edge(&p, transforms) {
+            Probe::Flat
+        } else {
+            Probe::Lower(p)
+        }
+    };
     let mut t = guess.clamp(1e-12, 1e12);
-    let (mut r, p) = rise(ev, t);
-    if r < -1e-7 * (1.0 + f0.abs()) {
-        return Probe::Lower(p);
+    let (r, p) = rise(ev, t);
+    if r < -tol {
+        return lower(p);
     }
     // Expand until the rise exceeds 1/2, or shrink until it is below.
     let (mut lo, mut hi);
@@ -439,8 +470,8 @@ fn probe(
         loop {
             t *= 2.0;
             let (rr, p) = rise(ev, t);
-            if rr < -1e-7 * (1.0 + f0.abs()) {
-                return Probe::Lower(p);
+            if rr < -tol {
+                return lower(p);
             }
             if rr >= 0.5 {
                 hi = t;
@@ -455,9 +486,11 @@ fn probe(
         hi = t;
         loop {
             t *= 0.5;
-            let (rr, _) = rise(ev, t);
-            r = rr;
-            if r < 0.5 {
+            let (rr, p) = rise(ev, t);
+            if rr < -tol {
+                return lower(p);
+            }
+            if rr < 0.5 {
                 lo = t;
                 break;
             }
@@ -469,7 +502,10 @@ fn probe(
     }
     for _ in 0..30 {
         let mid = 0.5 * (lo + hi);
-        let (rr, _) = rise(ev, mid);
+        let (rr, p) = rise(ev, mid);
+        if rr < -tol {
+            return lower(p);
+        }
         if rr >= 0.5 {
             hi = mid;
         } else {
@@ -708,6 +744,7 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
     let mut modes: Vec<Mode> = Vec::new();
     let mut notes = Vec::new();
     let mut bad_starts = 0;
+    let mut bad_gradients = 0;
     let mut bad_example: Option<(Vec<f64>, f64)> = None;
     let mut last_new = 0;
     let mut starts = 0;
@@ -722,10 +759,17 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
         loop {
             tries += 1;
             match minimize(&mut ev, z0.clone(), &target.transforms) {
-                Outcome::BadStart { energy } => {
-                    bad_starts += 1;
-                    if bad_example.is_none() {
-                        bad_example = Some((z0.clone(), energy));
+                Outcome::BadStart {
+                    energy,
+                    gradient_only,
+                } => {
+                    if gradient_only {
+                        bad_gradients += 1;
+                    } else {
+                        bad_starts += 1;
+                        if bad_example.is_none() {
+                            bad_example = Some((z0.clone(), energy));
+                        }
                     }
                     break;
                 }
@@ -736,9 +780,8 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
                     ))
                     .with_hint("an infinite density cannot be normalised; check for log(0) or division by zero with the sign flipped"));
                 }
-                Outcome::Escaped { z, from } => {
-                    let name = escape_variable(&from, &z, &target.names);
-                    return Err(improper(target, &name, &z));
+                Outcome::Escaped { z, along } => {
+                    return Err(improper(target, &target.names[along], &z));
                 }
                 Outcome::Converged {
                     z,
@@ -783,6 +826,11 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
             "{bad_starts} of {starts} starting points had non-finite energy (zero density there) and were skipped"
         ));
     }
+    if bad_gradients > 0 {
+        notes.push(format!(
+            "{bad_gradients} of {starts} starting points had a finite energy but a non-finite gradient (for example sqrt at 0) and were skipped"
+        ));
+    }
     if modes.iter().any(|m| m.non_quadratic) {
         notes.push("some modes are far from Gaussian; their Laplace masses use the measured width instead of the Hessian".to_string());
     }
@@ -793,4 +841,34 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
         evaluations: ev.evaluations,
         notes,
     })
+}
+
+/// Optimises from `z0` (for instance a draw in a region no start reached) and returns the mode
+/// it ends in, if it ends in one.
+pub fn mode_from(
+    target: &Target,
+    ev: &mut TargetEval,
+    z0: &[f64],
+) -> Result<Option<Mode>, KilnError> {
+    let mut z = z0.to_vec();
+    for _ in 0..4 {
+        match minimize(ev, z.clone(), &target.transforms) {
+            Outcome::Converged {
+                z: zc,
+                f,
+                inv_hessian_diag,
+            } => {
+                let sd: Vec<f64> = inv_hessian_diag.iter().map(|v| sqrt(*v)).collect();
+                match settle(ev, target, zc, f, &sd)? {
+                    Ok(m) => return Ok(Some(m)),
+                    Err(lower) => z = lower,
+                }
+            }
+            Outcome::Escaped { z, along } => {
+                return Err(improper(target, &target.names[along], &z));
+            }
+            Outcome::Infinite { .. } | Outcome::BadStart { .. } => return Ok(None),
+        }
+    }
+    Ok(None)
 }

@@ -155,6 +155,15 @@ pub fn check(spec: &Spec) -> Result<CheckOutcome, KilnError> {
         .collect();
     let work = p.target.evaluator_work();
     let grid = grid_log_z(&p.target, &scales, work, GRID_WORK);
+    if let Some(axis) = grid.as_ref().and_then(|g| g.growing_along) {
+        let name = &p.target.names[axis];
+        return Err(KilnError::density(format!(
+            "the density does not seem to be normalisable along `{name}`"
+        ))
+        .with_hint(format!(
+            "its tails fall off too slowly: the integral keeps growing as the range of `{name}` widens; bound `{name}` or add a term that makes the energy rise faster, such as a prior"
+        )));
+    }
     let mut warnings = p.search.notes.clone();
     if let Some(g) = &grid {
         warnings.extend(g.warnings.iter().cloned());

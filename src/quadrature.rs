@@ -23,6 +23,9 @@ pub struct GridResult {
     pub converged: bool,
     /// Share of the mass in the outermost cells of unbounded directions.
     pub edge_mass: f64,
+    /// Set when widening the grid along this axis kept adding mass at a rate that does not
+    /// die out: the density looks not normalisable along it.
+    pub growing_along: Option<usize>,
     pub warnings: Vec<String>,
 }
 
@@ -68,6 +71,8 @@ pub struct ModeScales {
 const SPAN: f64 = 12.0;
 /// Tolerance between successive refinements, in nats.
 const TOLERANCE: f64 = 2e-4;
+/// Most times the grid is widened along open directions.
+const MAX_WIDENINGS: usize = 7;
 
 fn build_axis(i: usize, t: Transform, scales: &ModeScales, widen: [u32; 2]) -> Axis {
     let locs: Vec<f64> = scales.location.iter().map(|l| l[i]).collect();
@@ -153,12 +158,12 @@ fn build_axis(i: usize, t: Transform, scales: &ModeScales, widen: [u32; 2]) -> A
     }
 }
 
-/// One pass over the grid: (log Z, log of the mass in edge cells of open directions).
-fn integrate(target: &Target, axes: &[Axis], level: u32) -> (f64, f64) {
+/// One pass over the grid: (log Z, log of the mass in edge cells of open directions, per axis).
+fn integrate(target: &Target, axes: &[Axis], level: u32) -> (f64, Vec<f64>) {
     let mut ev = target.evaluator();
     let px: Vec<Vec<(f64, f64)>> = axes.iter().map(|a| a.points(level)).collect();
     let mut total = f64::NEG_INFINITY;
-    let mut edge = f64::NEG_INFINITY;
+    let mut edge = vec![f64::NEG_INFINITY; axes.len()];
     let is_edge = |axis: usize, j: usize, n: usize| -> bool {
         (axes[axis].open_low && j == 0) || (axes[axis].open_high && j + 1 == n)
     };
@@ -174,7 +179,7 @@ fn integrate(target: &Target, axes: &[Axis], level: u32) -> (f64, f64) {
                 let v = -e + ln(w);
                 add(&mut total, v);
                 if is_edge(0, j, n) {
-                    add(&mut edge, v);
+                    add(&mut edge[0], v);
                 }
             }
         }
@@ -188,8 +193,11 @@ fn integrate(target: &Target, axes: &[Axis], level: u32) -> (f64, f64) {
                 if e.is_finite() {
                     let v = -e + ln(wx * wy);
                     row.push(v);
-                    if is_edge(0, i, nx) || is_edge(1, j, ny) {
-                        add(&mut edge, v);
+                    if is_edge(0, i, nx) {
+                        add(&mut edge[0], v);
+                    }
+                    if is_edge(1, j, ny) {
+                        add(&mut edge[1], v);
                     }
                 }
             }
@@ -216,14 +224,17 @@ pub fn grid_log_z(
     let mut warnings = Vec::new();
     let mut widen = vec![[0u32; 2]; d];
     let mut result: Option<GridResult> = None;
-    // Widen open edges while they carry mass (at most a few times), refining at each extent.
-    for _extent in 0..4 {
+    let mut increments: Vec<f64> = Vec::new();
+    let mut edge_by_axis = vec![0.0; d];
+    // Widen open edges (×4 each time) while they carry mass or widening still adds mass,
+    // refining at each extent.
+    for _extent in 0..MAX_WIDENINGS {
         let axes: Vec<Axis> = (0..d)
             .map(|i| build_axis(i, target.transforms[i], scales, widen[i]))
             .collect();
         let mut prev: Option<f64> = None;
         let mut level = 0;
-        let mut last = (f64::NEG_INFINITY, f64::NEG_INFINITY);
+        let mut last = (f64::NEG_INFINITY, vec![f64::NEG_INFINITY; d]);
         let mut converged = false;
         let mut change = f64::INFINITY;
         loop {
@@ -246,6 +257,11 @@ pub fn grid_log_z(
             }
         }
         if prev.is_none() && !converged {
+            if let Some(r) = result.take() {
+                // The last extent that fitted the budget stands.
+                result = Some(r);
+                break;
+            }
             // Not even the coarsest grid fits the budget.
             let cost =
                 axes.iter().map(|a| a.count(0) as f64).product::<f64>() * work_per_point as f64;
@@ -259,29 +275,37 @@ pub fn grid_log_z(
                 points_per_axis: axes.iter().map(|a| a.count(0)).collect(),
                 converged: false,
                 edge_mass: f64::NAN,
+                growing_along: None,
                 warnings,
             });
         }
-        let edge_mass = exp(last.1 - last.0);
+        edge_by_axis = last
+            .1
+            .iter()
+            .map(|e| exp(e - last.0))
+            .map(|e| if e.is_finite() { e } else { 0.0 })
+            .collect();
+        let edge_mass = edge_by_axis.iter().sum::<f64>();
         let used_level = if converged {
             level
         } else {
             level.saturating_sub(1)
         };
+        if let Some(r) = &result {
+            increments.push(last.0 - r.log_z);
+        }
         result = Some(GridResult {
             log_z: last.0,
             change,
             points_per_axis: axes.iter().map(|a| a.count(used_level)).collect(),
             converged,
-            edge_mass: if edge_mass.is_finite() {
-                edge_mass
-            } else {
-                0.0
-            },
+            edge_mass,
+            growing_along: None,
             warnings: Vec::new(),
         });
         let open = axes.iter().any(|a| a.open_low || a.open_high);
-        if !open || !(edge_mass > 1e-9) {
+        let still_gaining = increments.last().is_some_and(|inc| *inc > TOLERANCE);
+        if !open || (!(edge_mass > 1e-9) && !still_gaining) {
             break;
         }
         for (i, a) in axes.iter().enumerate() {
@@ -291,6 +315,18 @@ pub fn grid_log_z(
             if a.open_high {
                 widen[i][1] += 1;
             }
+        }
+    }
+    // Mass that keeps arriving as the grid widens, at a rate that does not die out (each ×4
+    // widening adds at least 0.7 times what the previous one added), is the signature of a
+    // density that is not normalisable; a proper tail decaying like 1/x² gives a ratio of 1/4.
+    let n = increments.len();
+    if n >= 3 && increments[n - 1] > 1e-3 && increments[n - 1] > 0.7 * increments[n - 2] {
+        if let Some(r) = result.as_mut() {
+            let axis = (0..d)
+                .max_by(|&a, &b| edge_by_axis[a].total_cmp(&edge_by_axis[b]))
+                .unwrap_or(0);
+            r.growing_along = Some(axis);
         }
     }
     let mut r = result?;

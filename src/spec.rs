@@ -236,6 +236,32 @@ pub fn parse_spec(source: &str, text: &str) -> Result<Spec, KilnError> {
         ))
         .with_hint("keep data below 10^6 cells"));
     }
+    // A byte-order mark is invisible in editors; accept it.
+    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    let first = text.trim_start().chars().next();
+    if first != Some('{') {
+        let shown = match first {
+            None => "the file is empty".to_string(),
+            Some('[') => "it is a JSON array".to_string(),
+            Some(_) => format!(
+                "it starts with `{}`",
+                text.trim_start()
+                    .chars()
+                    .take_while(|c| !c.is_whitespace())
+                    .take(12)
+                    .collect::<String>()
+            ),
+        };
+        let offset = text.len() - text.trim_start().len();
+        let mut e = KilnError::spec(format!("the spec must be a JSON object, but {shown}"))
+            .with_hint(
+                "a spec looks like {\"variables\": [{\"name\": \"x\"}], \"energy\": \"x^2/2\"}",
+            );
+        if first.is_some() {
+            e = e.at(Location::in_text(source, text, offset, offset + 1));
+        }
+        return Err(e);
+    }
     let raw: RawSpec = serde_json::from_str(text).map_err(|e| json_error(source, text, &e))?;
     validate(raw)
 }
@@ -257,23 +283,50 @@ fn json_error(source: &str, text: &str, e: &serde_json::Error) -> KilnError {
         serde_json::error::Category::Data => "see the spec format in the README".to_string(),
         serde_json::error::Category::Io => "the file could not be read".to_string(),
     };
+    let mut location =
+        (e.line() > 0).then(|| Location::at_line_column(source, text, e.line(), e.column()));
+    // What follows the reported position, for recognising NaN and Infinity.
+    let rest_of_line: String = location
+        .as_ref()
+        .map(|l| {
+            l.line_text
+                .chars()
+                .skip(l.column.saturating_sub(1))
+                .collect()
+        })
+        .unwrap_or_default();
     if let Some(rest) = message.strip_prefix("unknown field `") {
         if let Some(end) = rest.find('`') {
             let key = &rest[..end];
+            // serde reports the position after the key; put the caret under the key itself.
+            if let Some(loc) = location.as_mut() {
+                let quoted = format!("\"{key}\"");
+                let upto: String = loc.line_text.chars().take(loc.column).collect();
+                if let Some(byte) = upto.rfind(&quoted) {
+                    loc.column = upto[..byte].chars().count() + 1;
+                    loc.width = quoted.chars().count();
+                }
+            }
             let allowed = allowed_keys_for(&message);
             hint = match nearest(key, allowed.iter().copied()) {
                 Some(n) => format!("did you mean `{n}`?"),
                 None => format!("allowed keys here: {}", allowed.join(", ")),
             };
         }
+    } else if ["NaN", "Infinity", "-Infinity", "inf", "nan"]
+        .iter()
+        .any(|w| rest_of_line.trim_start().starts_with(w))
+    {
+        hint =
+            "JSON has no NaN or Infinity: give a finite number, or leave the key out".to_string();
     } else if message.contains("number out of range") {
         hint = "numbers must be finite, below about 1.8e308".to_string();
     } else if message.contains("invalid type") && message.contains("expected f64") {
         hint = "write numbers without quotes; JSON has no NaN or Infinity".to_string();
     }
     let mut err = KilnError::new(ErrorKind::Spec, format!("the spec is not valid: {message}"));
-    if e.line() > 0 {
-        err = err.at(Location::at_line_column(source, text, e.line(), e.column()));
+    if let Some(loc) = location {
+        err = err.at(loc);
     }
     err.with_hint(hint)
 }
@@ -505,7 +558,8 @@ fn validate_mixture(comps: &[RawComponent]) -> Result<Vec<Component>, KilnError>
         return Err(KilnError::limit(format!(
             "the mixture has {} components; the limit is {MAX_COMPONENTS}",
             comps.len()
-        )));
+        ))
+        .with_hint("merge components that overlap, or write the model as an \"energy\" formula with logsumexp"));
     }
     let d = comps[0].mean.len();
     if d == 0 {

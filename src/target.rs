@@ -341,7 +341,12 @@ impl TargetEval {
         };
         for i in 0..d {
             let (_, dxdz, _, dlj) = self.transforms[i].with_jacobian(z[i]);
-            grad[i] = self.gx[i] * dxdz - dlj;
+            // An unknown the formula does not depend on has zero slope even where dx/dz overflows.
+            grad[i] = if self.gx[i] == 0.0 {
+                -dlj
+            } else {
+                self.gx[i] * dxdz - dlj
+            };
         }
         clean(e - log_jac)
     }

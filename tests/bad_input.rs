@@ -4,8 +4,7 @@
 //! Each case writes a spec file into its own folder under the system temporary directory, runs
 //! `kiln check` on it and checks what the user sees: exit code exactly 2, a message that names
 //! the fault, the place (`--> energy, line L, column C`, the source line and a caret line) where
-//! the fault is in one place, a `= hint:` line, and never a panic. Cases marked `#[ignore]`
-//! assert the behaviour a user should get but does not get yet; the reason says what happens now.
+//! the fault is in one place, a `= hint:` line, and never a panic.
 
 use std::fs;
 use std::path::{Path, PathBuf};
@@ -330,7 +329,7 @@ fn truncated_json_says_the_file_ends_early() {
 fn empty_file() {
     check("empty_file", "")
         .bad_input()
-        .error_line("the spec is not valid")
+        .error_line("the spec must be a JSON object, but the file is empty")
         .any_hint();
 }
 
@@ -1317,7 +1316,6 @@ fn falling_energies_are_improper() {
 }
 
 #[test]
-#[ignore = "kiln says `the energy is −∞ (infinite density) at x = inf` with a hint about log(0) and division by zero; it should say the density is not normalisable along `x`"]
 fn falling_energy_on_a_half_line_is_improper() {
     check(
         "minus_x_lower_0",
@@ -1329,7 +1327,6 @@ fn falling_energy_on_a_half_line_is_improper() {
 }
 
 #[test]
-#[ignore = "kiln says `the energy is −∞ (infinite density) at x = -inf`; it should say the density is not normalisable along `x`"]
 fn rising_energy_towards_minus_infinity_below_an_upper_bound_is_improper() {
     check(
         "x_upper_0",
@@ -1341,7 +1338,6 @@ fn rising_energy_towards_minus_infinity_below_an_upper_bound_is_improper() {
 }
 
 #[test]
-#[ignore = "kiln says `the energy is not finite at any of the 50 starting points (for example at s = inf the energy is -811)`: it is finite, and the fault is that the density is flat on s > 0"]
 fn constant_energy_on_a_half_line_is_improper() {
     check(
         "zero_lower_0",
@@ -1397,7 +1393,6 @@ fn density_flat_along_one_unknown_names_it() {
 }
 
 #[test]
-#[ignore = "kiln says `a mode's Hessian is not positive definite` (hint: `the density may be flat or not normalisable near a mode`) and does not name `y`"]
 fn density_flat_along_a_half_bounded_unknown_names_it() {
     check(
         "flat_along_y_lower_0",
@@ -1413,12 +1408,35 @@ fn density_flat_along_a_half_bounded_unknown_names_it() {
 }
 
 #[test]
-#[ignore = "kiln exits 0 and reports grid log Z 2.7753 with no warning, but exp(-0.5 log(1 + x^2)) = 1/sqrt(1 + x^2) has no finite integral"]
 fn heavy_tailed_improper_density_is_refused() {
     check("slow_tails", &energy_spec(X, None, "0.5 * log(1 + x^2)"))
         .bad_input()
         .error_line("normalisable along `x`")
         .any_hint();
+}
+
+#[test]
+fn proper_density_with_a_bounded_unknown_is_not_called_improper() {
+    // The negative control of the improper-density check: T − T0 − 17 ~ N(0, 1), T0 ~ N(25, 2²),
+    // T inside (−40, 85). A proper, unimodal density; kiln must accept it for every seed.
+    for seed in [1, 2, 3, 4] {
+        let text = format!(
+            "{{\"variables\": [{{\"name\": \"T\", \"lower\": -40, \"upper\": 85}}, {{\"name\": \"T0\"}}],\n \
+             \"energy\": \"0.5 * (T - T0 - 17)^2 + 0.5 * ((T0 - 25) / 2)^2\",\n \"settings\": {{\"seed\": {seed}}}}}"
+        );
+        let run = check(&format!("proper_bounded_seed_{seed}"), &text);
+        assert!(
+            !run.stderr.contains("panicked"),
+            "kiln panicked\n{}",
+            run.show()
+        );
+        assert_eq!(
+            run.code,
+            Some(0),
+            "a proper density was refused\n{}",
+            run.show()
+        );
+    }
 }
 
 // ---------------------------------------------------------------------------------------------

@@ -1,0 +1,790 @@
+//! Stage 6c: chains of continuously tempered HMC, warm-up and sampling.
+//!
+//! Owns: the chain state machine, the warm-up schedule and what is learned in it (step size by
+//! dual averaging; the bias g(β) that flattens the β marginal, by the Rao-Blackwellised update
+//! of Carlson et al. 2016; the refit of the base when it is poor; modes found by the chains),
+//! and the sampling phase in which all of that is frozen, so that the kept draws come from one
+//! fixed Markov chain.
+//!
+//! Two ways to move (method note):
+//! - alternating: HMC or NUTS on `x | β` with potential `ψ + βΔ`, an independence move, then
+//!   the exact draw of `β | x`;
+//! - joint: HMC or NUTS on (x, u), β = σ(u), potential
+//!   `ψ + βΔ − g(β) − log σ(u) − log(1 − σ(u))`, then the independence move.
+//!
+//! Coordinates are whitened, z = L q with L L' the within-mode covariance of the base
+//! (Σ_k w_k Σ_k), which is the dense metric; the joint variant's u is scaled by the standard
+//! deviation of u, its own mass. The joint variant uses the same piecewise-linear g as the
+//! alternating one: its gradient in u jumps at the knots, which the leapfrog integrator
+//! tolerates (the potential is continuous, so the chain stays exact), and the closed forms of
+//! `tempering` stay available for the estimator.
+//!
+//! Chains are independent between synchronisation points (the ends of warm-up windows), where
+//! their records are merged in chain order; results therefore do not depend on how many
+//! threads or workers run the chains.
+//! Must not: estimate log Z, masses or diagnostics for the report (that is `estimates`).
+
+use crate::approx::Laplace;
+use crate::error::KilnError;
+use crate::gaussian::{cholesky, Gaussian, Mixture};
+use crate::hmc::{initial_step_size, nuts, static_hmc, DualAveraging, Point, Potential};
+use crate::maths::{exp, ln, log_sum_exp, logistic, sqrt};
+use crate::modes::{mahalanobis2, merge_mode, mode_from, Mode};
+use crate::rng::{Purpose, Stream};
+use crate::target::Target;
+use crate::tempering::{u_prior_energy, Base, Bias, Evaluated, Tempered};
+use std::sync::Arc;
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Method {
+    Joint,
+    Alternating,
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Integrator {
+    Nuts,
+    Hmc,
+}
+
+/// When to refit the base in warm-up.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum RefitPolicy {
+    /// When the learned bias spans more than [`REFIT_SPAN`] nats or chains found new modes.
+    Auto,
+    Never,
+    Always,
+}
+
+/// Bias span (nats) above which the base counts as poor and is refitted.
+pub const REFIT_SPAN: f64 = 1.0;
+
+#[derive(Clone, Debug)]
+pub struct SamplerOptions {
+    pub chains: usize,
+    pub warmup: usize,
+    pub draws: usize,
+    pub method: Method,
+    pub integrator: Integrator,
+    pub target_accept: f64,
+    pub seed: u64,
+    pub max_depth: usize,
+    /// Independence moves from the base after every transition.
+    pub independence: bool,
+    /// Learn the bias g(β) in warm-up (false: the plain method, g = 0).
+    pub learn_bias: bool,
+    pub refit: RefitPolicy,
+    /// Knots of g: equal segments on [0, 1].
+    pub knots: usize,
+    /// `Some(b)`: no tempering, β fixed at b (b = 1 is plain HMC on the target).
+    pub fixed_beta: Option<f64>,
+}
+
+impl SamplerOptions {
+    pub fn new(seed: u64) -> SamplerOptions {
+        SamplerOptions {
+            chains: 4,
+            warmup: 1000,
+            draws: 2000,
+            method: Method::Alternating,
+            integrator: Integrator::Nuts,
+            target_accept: 0.8,
+            seed,
+            max_depth: 10,
+            independence: true,
+            learn_bias: true,
+            refit: RefitPolicy::Auto,
+            knots: 16,
+            fixed_beta: None,
+        }
+    }
+}
+
+/// What all chains share in a phase; changed only at synchronisation points.
+#[derive(Clone, Debug)]
+pub struct Plan {
+    pub base: Base,
+    pub bias: Bias,
+    /// Whitening: z = L q, row-major lower triangle.
+    pub chol: Vec<f64>,
+    /// Inverse of `chol`, row-major.
+    pub chol_inv: Vec<f64>,
+    pub u_scale: f64,
+    pub options: SamplerOptions,
+    /// Known modes (the optimiser's, and any the chains found).
+    pub modes: Vec<Mode>,
+    /// The Laplace approximation at the known modes (for assigning draws to modes).
+    pub laplace: Laplace,
+    pub refitted: bool,
+    /// Modes the chains found that the optimiser had not.
+    pub new_modes: usize,
+    pub notes: Vec<String>,
+}
+
+/// One chain's record of a phase.
+#[derive(Clone, Debug, Default)]
+pub struct Record {
+    /// Unconstrained positions, `dim` per iteration.
+    pub z: Vec<f64>,
+    pub beta: Vec<f64>,
+    pub delta: Vec<f64>,
+    pub accept: f64,
+    pub divergences: usize,
+    pub leapfrogs: u64,
+    pub max_depth_hits: usize,
+    pub independence_accepted: usize,
+    pub iterations: usize,
+}
+
+/// A chain: its generator, its evaluator, its position and its step size.
+#[derive(Clone)]
+pub struct Chain {
+    pub index: usize,
+    rng: Stream,
+    tempered: Tempered,
+    /// Current position, unconstrained.
+    z: Vec<f64>,
+    /// Current β (alternating) or σ(u) (joint).
+    beta: f64,
+    u: f64,
+    delta: f64,
+    eps: f64,
+    adapt: DualAveraging,
+    ev: Evaluated,
+}
+
+fn lower_inverse(l: &[f64], d: usize) -> Vec<f64> {
+    let mut inv = vec![0.0; d * d];
+    for col in 0..d {
+        for i in 0..d {
+            let mut s = if i == col { 1.0 } else { 0.0 };
+            for k in 0..i {
+                s -= l[i * d + k] * inv[k * d + col];
+            }
+            inv[i * d + col] = s / l[i * d + i];
+        }
+    }
+    inv
+}
+
+/// Within-mode covariance Σ_k w_k Σ_k of the components listed.
+fn within_cov(q: &Mixture, skip_last: bool) -> Vec<f64> {
+    let d = q.dim;
+    let w = q.weights();
+    let n = if skip_last && q.components.len() > 1 {
+        q.components.len() - 1
+    } else {
+        q.components.len()
+    };
+    let total: f64 = w[..n].iter().sum();
+    let mut c = vec![0.0; d * d];
+    for k in 0..n {
+        let s = q.components[k].scale_matrix();
+        for ij in 0..d * d {
+            c[ij] += w[k] / total * s[ij];
+        }
+    }
+    c
+}
+
+impl Plan {
+    pub fn new(
+        target: &Target,
+        modes: Vec<Mode>,
+        laplace: Laplace,
+        options: SamplerOptions,
+    ) -> Result<Plan, KilnError> {
+        let base = Base {
+            q: Arc::new(laplace.base.clone()),
+            log_zeta: laplace.log_zeta,
+        };
+        let mut plan = Plan {
+            base,
+            bias: Bias::flat(options.knots),
+            chol: Vec::new(),
+            chol_inv: Vec::new(),
+            u_scale: 1.8,
+            options,
+            modes,
+            laplace,
+            refitted: false,
+            new_modes: 0,
+            notes: Vec::new(),
+        };
+        plan.set_metric(target.dim(), false)?;
+        Ok(plan)
+    }
+
+    fn set_metric(&mut self, d: usize, skip_last: bool) -> Result<(), KilnError> {
+        let c = within_cov(&self.base.q, skip_last);
+        let l = cholesky(&c, d)
+            .ok_or_else(|| KilnError::density("the base's covariance is not positive definite"))?;
+        self.chol_inv = lower_inverse(&l, d);
+        self.chol = l;
+        Ok(())
+    }
+
+    fn dim(&self) -> usize {
+        self.base.q.dim
+    }
+
+    /// z = L q
+    fn to_z(&self, q: &[f64], z: &mut [f64]) {
+        let d = self.dim();
+        for i in 0..d {
+            z[i] = (0..=i).map(|k| self.chol[i * d + k] * q[k]).sum();
+        }
+    }
+
+    /// q = L⁻¹ z
+    fn to_q(&self, z: &[f64]) -> Vec<f64> {
+        let d = self.dim();
+        (0..d)
+            .map(|i| (0..=i).map(|k| self.chol_inv[i * d + k] * z[k]).sum())
+            .collect()
+    }
+
+    pub fn is_tempered(&self) -> bool {
+        self.options.fixed_beta.is_none()
+    }
+}
+
+/// The potential a chain moves on, in whitened coordinates.
+struct ChainPotential<'a> {
+    plan: &'a Plan,
+    tempered: &'a mut Tempered,
+    ev: &'a mut Evaluated,
+    z: Vec<f64>,
+    beta: f64,
+    joint: bool,
+}
+
+impl<'a> Potential for ChainPotential<'a> {
+    fn dim(&self) -> usize {
+        self.plan.dim() + usize::from(self.joint)
+    }
+    fn value_grad(&mut self, q: &[f64], grad: &mut [f64]) -> f64 {
+        let d = self.plan.dim();
+        let mut z = std::mem::take(&mut self.z);
+        self.plan.to_z(&q[..d], &mut z);
+        self.tempered.eval(&z, self.ev);
+        self.z = z;
+        let ev = &*self.ev;
+        let (beta, u) = if self.joint {
+            let u = self.plan.u_scale * q[d];
+            (logistic(u), u)
+        } else {
+            (self.beta, 0.0)
+        };
+        if beta > 0.0 && !ev.e.is_finite() {
+            return f64::INFINITY;
+        }
+        let e_term = if beta > 0.0 {
+            beta * (ev.e + self.plan.base.log_zeta)
+        } else {
+            0.0
+        };
+        let mut value = (1.0 - beta) * ev.psi + e_term;
+        // ∂U/∂z, then Lᵀ to whitened coordinates.
+        let mut gz = vec![0.0; d];
+        for i in 0..d {
+            gz[i] =
+                (1.0 - beta) * ev.grad_psi[i] + if beta > 0.0 { beta * ev.grad_e[i] } else { 0.0 };
+        }
+        for k in 0..d {
+            grad[k] = (k..d).map(|i| self.plan.chol[i * d + k] * gz[i]).sum();
+        }
+        if self.joint {
+            let bias = &self.plan.bias;
+            value += -bias.at(beta) + u_prior_energy(u);
+            let du = beta * (1.0 - beta) * (ev.delta - bias.slope(beta)) + 2.0 * beta - 1.0;
+            grad[d] = self.plan.u_scale * du;
+        }
+        value
+    }
+}
+
+impl Chain {
+    /// A chain started from a draw of the base.
+    pub fn new(index: usize, target: &Target, plan: &Plan) -> Result<Chain, KilnError> {
+        let opts = &plan.options;
+        let mut rng = Stream::new(opts.seed, Purpose::Chain, index as u64);
+        let mut tempered = Tempered::new(target.evaluator(), plan.base.clone());
+        let d = target.dim();
+        let mut z = vec![0.0; d];
+        let mut delta = f64::INFINITY;
+        for _ in 0..1000 {
+            tempered.draw_base(&mut rng, &mut z);
+            delta = tempered.delta(&z).0;
+            if delta.is_finite() {
+                break;
+            }
+        }
+        if !delta.is_finite() {
+            return Err(KilnError::density(
+                "the energy is not finite at any of 1000 draws from the approximation around the modes",
+            )
+            .with_hint("the density may be zero almost everywhere near its modes; check the formula's domain"));
+        }
+        let beta = match opts.fixed_beta {
+            Some(b) => b,
+            None => rng.uniform(),
+        };
+        let u = ln(beta) - ln(1.0 - beta);
+        let ev = tempered.new_evaluated();
+        Ok(Chain {
+            index,
+            rng,
+            tempered,
+            z,
+            beta,
+            u,
+            delta,
+            eps: 0.5,
+            adapt: DualAveraging::new(0.5, opts.target_accept),
+            ev,
+        })
+    }
+
+    fn joint(plan: &Plan) -> bool {
+        plan.options.method == Method::Joint && plan.is_tempered()
+    }
+
+    fn position(&self, plan: &Plan) -> Vec<f64> {
+        let mut q = plan.to_q(&self.z);
+        if Self::joint(plan) {
+            q.push(self.u / plan.u_scale);
+        }
+        q
+    }
+
+    /// Restarts step-size adaptation from a fresh initial step size.
+    fn restart_adaptation(&mut self, plan: &Plan) {
+        let q = self.position(plan);
+        let joint = Self::joint(plan);
+        let beta = self.beta;
+        let mut pot = ChainPotential {
+            plan,
+            tempered: &mut self.tempered,
+            ev: &mut self.ev,
+            z: vec![0.0; plan.dim()],
+            beta,
+            joint,
+        };
+        let point = Point::at(&mut pot, q);
+        let eps = if point.u.is_finite() {
+            initial_step_size(&mut pot, &point, 0.5, &mut self.rng)
+        } else {
+            0.5
+        };
+        self.eps = eps;
+        self.adapt = DualAveraging::new(eps, plan.options.target_accept);
+    }
+
+    /// Runs `iterations` transitions; adapts the step size when `adapt`.
+    pub fn run(&mut self, plan: &Plan, iterations: usize, adapt: bool) -> Record {
+        let d = plan.dim();
+        let joint = Self::joint(plan);
+        let mut rec = Record {
+            iterations,
+            ..Record::default()
+        };
+        rec.z.reserve(iterations * d);
+        let mut q = self.position(plan);
+        for _ in 0..iterations {
+            // 1. Hamiltonian move.
+            let beta = self.beta;
+            let t = {
+                let mut pot = ChainPotential {
+                    plan,
+                    tempered: &mut self.tempered,
+                    ev: &mut self.ev,
+                    z: vec![0.0; d],
+                    beta,
+                    joint,
+                };
+                let mut point = Point::at(&mut pot, q.clone());
+                let t = match plan.options.integrator {
+                    crate::sampler::Integrator::Nuts => nuts(
+                        &mut pot,
+                        &mut point,
+                        self.eps,
+                        plan.options.max_depth,
+                        &mut self.rng,
+                    ),
+                    crate::sampler::Integrator::Hmc => {
+                        let steps = ((2.0 / self.eps).ceil() as usize).clamp(1, 1024);
+                        static_hmc(&mut pot, &mut point, self.eps, steps, &mut self.rng)
+                    }
+                };
+                q = point.q;
+                t
+            };
+            rec.accept += t.accept;
+            rec.divergences += usize::from(t.divergent);
+            rec.leapfrogs += t.leapfrogs as u64 + 1;
+            rec.max_depth_hits += usize::from(t.depth >= plan.options.max_depth);
+            if adapt {
+                self.eps = self.adapt.update(t.accept);
+            }
+            plan.to_z(&q[..d], &mut self.z);
+            if joint {
+                self.u = plan.u_scale * q[d];
+                self.beta = logistic(self.u);
+            }
+            self.delta = self.tempered.delta(&self.z).0;
+
+            if plan.is_tempered() {
+                // 2. Independence move from the base: accept with min(1, exp(−β(Δ′ − Δ))).
+                if plan.options.independence {
+                    let mut zp = vec![0.0; d];
+                    self.tempered.draw_base(&mut self.rng, &mut zp);
+                    let (dp, _) = self.tempered.delta(&zp);
+                    let log_a = -self.beta * (dp - self.delta);
+                    if dp.is_finite() && ln(self.rng.uniform()) < log_a {
+                        self.z = zp;
+                        self.delta = dp;
+                        rec.independence_accepted += 1;
+                        let qz = plan.to_q(&self.z);
+                        q[..d].copy_from_slice(&qz);
+                    }
+                }
+                // 3. Exact β | x (alternating).
+                if !joint {
+                    let mut s = vec![0.0; plan.bias.knots.len()];
+                    self.beta = plan.bias.draw_beta(self.delta, &mut self.rng, &mut s);
+                }
+            }
+            rec.z.extend_from_slice(&self.z);
+            rec.beta.push(self.beta);
+            rec.delta.push(self.delta);
+        }
+        if iterations > 0 {
+            rec.accept /= iterations as f64;
+        }
+        rec
+    }
+
+    pub fn gradient_evaluations(&self) -> u64 {
+        self.tempered.gradient_evaluations + self.tempered.target.evaluations
+    }
+
+    fn set_base(&mut self, base: &Base) {
+        self.tempered.base = base.clone();
+        self.tempered = Tempered::new(self.tempered.target.clone(), base.clone());
+        self.delta = self.tempered.delta(&self.z).0;
+    }
+}
+
+/// Runs every chain for `iterations`, in parallel where the platform has threads.
+pub fn run_chains(
+    chains: &mut [Chain],
+    plan: &Plan,
+    iterations: usize,
+    adapt: bool,
+) -> Vec<Record> {
+    #[cfg(not(target_arch = "wasm32"))]
+    {
+        let threads = std::thread::available_parallelism().map_or(1, |n| n.get());
+        if threads > 1 && chains.len() > 1 {
+            let mut out: Vec<Option<Record>> = vec![None; chains.len()];
+            let per = chains.len().div_ceil(threads);
+            std::thread::scope(|s| {
+                for (cs, os) in chains.chunks_mut(per).zip(out.chunks_mut(per)) {
+                    s.spawn(move || {
+                        for (c, o) in cs.iter_mut().zip(os.iter_mut()) {
+                            *o = Some(c.run(plan, iterations, adapt));
+                        }
+                    });
+                }
+            });
+            return out.into_iter().map(|r| r.unwrap_or_default()).collect();
+        }
+    }
+    chains
+        .iter_mut()
+        .map(|c| c.run(plan, iterations, adapt))
+        .collect()
+}
+
+/// Warm-up windows as shares of the warm-up length.
+pub const WINDOWS: [f64; 7] = [0.08, 0.08, 0.12, 0.12, 0.15, 0.2, 0.25];
+/// After which window the base may be refitted.
+pub const REFIT_AFTER: usize = 2;
+
+/// Lengths of the warm-up windows for `warmup` iterations (they add up to `warmup`).
+pub fn window_lengths(warmup: usize) -> Vec<usize> {
+    let mut out: Vec<usize> = WINDOWS
+        .iter()
+        .map(|f| (f * warmup as f64).floor() as usize)
+        .collect();
+    let used: usize = out.iter().sum();
+    if let Some(last) = out.last_mut() {
+        *last += warmup - used;
+    }
+    out
+}
+
+/// Pooled log p(b_j | x) averaged over records: log of the Rao-Blackwellised β marginal at the knots.
+pub fn log_marginal_at_knots(bias: &Bias, records: &[Record]) -> Vec<f64> {
+    let k = bias.knots.len();
+    let mut acc = vec![Vec::new(); k];
+    let mut s = vec![0.0; k];
+    let mut lp = vec![0.0; k];
+    for r in records {
+        for &delta in &r.delta {
+            bias.log_p_knots(delta, &mut lp, &mut s);
+            for j in 0..k {
+                acc[j].push(lp[j]);
+            }
+        }
+    }
+    acc.iter()
+        .map(|v| log_sum_exp(v) - ln(v.len().max(1) as f64))
+        .collect()
+}
+
+/// The log Z estimate of the method note from records made with `bias` and `base`.
+pub fn log_z_from(bias: &Bias, base: &Base, records: &[Record]) -> f64 {
+    let mut l1 = Vec::new();
+    let mut l0 = Vec::new();
+    let mut s = vec![0.0; bias.knots.len()];
+    for r in records {
+        for &delta in &r.delta {
+            let (a, b) = bias.log_p1_p0(delta, &mut s);
+            l1.push(a);
+            l0.push(b);
+        }
+    }
+    let g0 = bias.values[0];
+    let g1 = bias.values[bias.values.len() - 1];
+    base.log_zeta + g0 - g1 + log_sum_exp(&l1) - log_sum_exp(&l0)
+}
+
+/// Learning rate of the bias update after warm-up window `w` (counted from the last reset).
+fn bias_step(w: usize) -> f64 {
+    [1.0, 1.0, 0.8, 0.6, 0.5, 0.4, 0.3][w.min(6)]
+}
+
+/// Everything warm-up produced: the frozen plan and the chains ready to sample.
+pub struct Warm {
+    pub plan: Plan,
+    pub chains: Vec<Chain>,
+    pub warmup_records: Vec<Vec<Record>>,
+}
+
+impl Plan {
+    /// g ← g − γ log p̂(b), normalised so that g(0) = 0.
+    fn update_bias(&mut self, records: &[Record], step: f64) {
+        let lm = log_marginal_at_knots(&self.bias, records);
+        for j in 0..self.bias.values.len() {
+            let upd = if lm[j].is_finite() { lm[j] } else { 30.0 };
+            self.bias.values[j] -= step * upd.clamp(-30.0, 30.0);
+        }
+        let g0 = self.bias.values[0];
+        for v in self.bias.values.iter_mut() {
+            *v -= g0;
+        }
+    }
+
+    fn bias_span(&self) -> f64 {
+        let max = self
+            .bias
+            .values
+            .iter()
+            .copied()
+            .fold(f64::NEG_INFINITY, f64::max);
+        let min = self
+            .bias
+            .values
+            .iter()
+            .copied()
+            .fold(f64::INFINITY, f64::min);
+        max - min
+    }
+
+    /// Looks for regions the chains visit near β = 1 that no known mode covers, and
+    /// optimises from them. Returns how many new modes were added.
+    fn discover_modes(&mut self, target: &Target, records: &[Record]) -> Result<usize, KilnError> {
+        let d = self.dim();
+        let threshold = 30.0 + 4.0 * d as f64;
+        let mut candidates: Vec<(f64, Vec<f64>)> = Vec::new();
+        for r in records {
+            for (i, &beta) in r.beta.iter().enumerate() {
+                if beta < 0.5 {
+                    continue;
+                }
+                let z = &r.z[i * d..(i + 1) * d];
+                let near = self
+                    .modes
+                    .iter()
+                    .map(|m| mahalanobis2(z, &m.z, &m.hessian))
+                    .fold(f64::INFINITY, f64::min);
+                if near > threshold {
+                    candidates.push((near, z.to_vec()));
+                }
+            }
+        }
+        candidates.sort_by(|a, b| a.0.total_cmp(&b.0));
+        let mut ev = target.evaluator();
+        let mut added = 0;
+        let mut tried: Vec<Vec<f64>> = Vec::new();
+        for (_, z) in candidates.into_iter().rev() {
+            if tried.len() >= 20 {
+                break;
+            }
+            if tried
+                .iter()
+                .any(|t| t.iter().zip(&z).all(|(a, b)| (a - b).abs() < 1e-9))
+            {
+                continue;
+            }
+            // Skip draws a mode found in this round already covers.
+            if self
+                .modes
+                .iter()
+                .any(|m| mahalanobis2(&z, &m.z, &m.hessian) <= threshold)
+            {
+                continue;
+            }
+            tried.push(z.clone());
+            if let Some(m) = mode_from(target, &mut ev, &z)? {
+                if merge_mode(&mut self.modes, m) {
+                    added += 1;
+                }
+            }
+        }
+        if added > 0 {
+            self.laplace = Laplace::from_modes(&self.modes)?;
+        }
+        Ok(added)
+    }
+
+    /// Refits the base to the weighted draws of `records` and re-estimates log ζ.
+    fn refit_base(
+        &mut self,
+        target: &Target,
+        records: &[Record],
+        rng: &mut Stream,
+    ) -> Result<bool, KilnError> {
+        let d = self.dim();
+        let mut points = Vec::new();
+        let mut log_w = Vec::new();
+        let mut s = vec![0.0; self.bias.knots.len()];
+        for r in records {
+            for (i, &delta) in r.delta.iter().enumerate() {
+                let (l1, _) = self.bias.log_p1_p0(delta, &mut s);
+                if l1.is_finite() {
+                    points.push(r.z[i * d..(i + 1) * d].to_vec());
+                    log_w.push(l1);
+                }
+            }
+        }
+        let m = log_w.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+        let w: Vec<f64> = log_w.iter().map(|l| exp(l - m)).collect();
+        let seeds: Vec<Gaussian> = self.laplace.base.components.clone();
+        let k_max = (2 * seeds.len()).max(8).min(seeds.len() + 16);
+        let Some(fit) = crate::refit::refit(&points, &w, &seeds, k_max, rng) else {
+            return Ok(false);
+        };
+        let log_zeta = log_z_from(&self.bias, &self.base, records);
+        if !log_zeta.is_finite() {
+            return Ok(false);
+        }
+        self.base = Base {
+            q: Arc::new(fit),
+            log_zeta,
+        };
+        self.bias = Bias::flat(self.options.knots);
+        self.set_metric(target.dim(), true)?;
+        self.refitted = true;
+        Ok(true)
+    }
+}
+
+/// Warm-up: adapts, learns the bias, may refit the base and add modes; then freezes the plan.
+pub fn warm_up(
+    target: &Target,
+    modes: Vec<Mode>,
+    laplace: Laplace,
+    options: SamplerOptions,
+) -> Result<Warm, KilnError> {
+    let mut plan = Plan::new(target, modes, laplace, options)?;
+    let mut chains: Vec<Chain> = (0..plan.options.chains)
+        .map(|c| Chain::new(c, target, &plan))
+        .collect::<Result<_, _>>()?;
+    for c in chains.iter_mut() {
+        c.restart_adaptation(&plan);
+    }
+    let mut merge_rng = Stream::new(plan.options.seed, Purpose::Resample, 1 << 20);
+    let mut all = Vec::new();
+    let mut since_reset = 0;
+    for (w, &len) in window_lengths(plan.options.warmup).iter().enumerate() {
+        let records = run_chains(&mut chains, &plan, len, true);
+        if plan.is_tempered() && len > 0 {
+            if plan.options.learn_bias {
+                plan.update_bias(&records, bias_step(since_reset));
+                since_reset += 1;
+            }
+            if w == REFIT_AFTER {
+                let found = plan.discover_modes(target, &records)?;
+                plan.new_modes += found;
+                let poor = plan.bias_span() > REFIT_SPAN;
+                let refit = match plan.options.refit {
+                    RefitPolicy::Always => true,
+                    RefitPolicy::Never => false,
+                    RefitPolicy::Auto => poor || found > 0,
+                };
+                if refit {
+                    // Refit with the records of this window, made under the current bias.
+                    let mut pre = plan.clone();
+                    if plan.options.learn_bias {
+                        // The bias was just updated; estimate with the one the draws were made under.
+                        pre.bias = Bias::flat(plan.options.knots);
+                    }
+                    let _ = pre;
+                    if plan.refit_base(target, &records, &mut merge_rng)? {
+                        for c in chains.iter_mut() {
+                            c.set_base(&plan.base);
+                            c.restart_adaptation(&plan);
+                        }
+                        since_reset = 0;
+                        plan.notes.push(format!(
+                            "the base was refitted to warm-up draws ({} components){}",
+                            plan.base.q.components.len(),
+                            if found > 0 {
+                                format!(", after the chains found {found} new mode(s)")
+                            } else {
+                                String::new()
+                            }
+                        ));
+                    }
+                }
+            }
+            if Chain::joint(&plan) {
+                let us: Vec<f64> = records
+                    .iter()
+                    .flat_map(|r| r.beta.iter().map(|b| ln(*b) - ln(1.0 - b)))
+                    .filter(|u| u.is_finite())
+                    .collect();
+                if us.len() > 10 {
+                    let m = us.iter().sum::<f64>() / us.len() as f64;
+                    let v =
+                        us.iter().map(|u| (u - m) * (u - m)).sum::<f64>() / (us.len() - 1) as f64;
+                    plan.u_scale = sqrt(v).clamp(0.5, 5.0);
+                }
+            }
+        }
+        all.push(records);
+    }
+    for c in chains.iter_mut() {
+        c.eps = c.adapt.final_eps();
+    }
+    Ok(Warm {
+        plan,
+        chains,
+        warmup_records: all,
+    })
+}
