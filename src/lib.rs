@@ -24,6 +24,7 @@ pub mod rng;
 
 pub mod approx;
 pub mod check;
+pub mod estimates;
 pub mod hmc;
 pub mod modes;
 pub mod pipeline;

@@ -9,9 +9,21 @@ const USAGE: &str = "\
 kiln: modes, log evidence (log Z) and cross-checks for multimodal densities
 
 Usage:
-  kiln check SPEC.json [--json]   find the modes, the Laplace log Z and the grid log Z (1-2 unknowns)
-  kiln --help                     this text
-  kiln --version                  the version
+  kiln check SPEC.json [--json]       modes, Laplace log Z, grid log Z (1-2 unknowns), exact answers
+  kiln run SPEC.json [options]        sample: log Z ± SE, mode masses, unknowns, cross-checks
+  kiln compare A.json B.json [options]
+                                      Bayes factor log(Z_A / Z_B) ± SE from two runs
+  kiln --help | --version
+
+Options of run and compare (they override the spec's \"settings\"):
+  --seed N            random seed (default 1)
+  --chains K          chains (default 4)
+  --draws N           kept draws per chain (default 2000)
+  --warmup N          warm-up iterations per chain (default 1000)
+  --method M          joint | alternating (default alternating)
+  --integrator I      nuts | hmc (default nuts)
+  --json              print one JSON object instead of the report
+  --draws-csv PATH    (run) write resampled target draws as CSV
 
 Exit codes: 0 success, 2 bad input (the message on standard error says where and how to fix it).";
 
@@ -28,6 +40,94 @@ fn to_json<T: serde::Serialize>(v: &T) -> Result<String, KilnError> {
         .map_err(|e| KilnError::usage(format!("could not write JSON: {e}")))
 }
 
+struct Options {
+    json: bool,
+    draws_csv: Option<String>,
+    overrides: pipeline::Overrides,
+}
+
+fn number<T: std::str::FromStr>(flag: &str, v: Option<&String>) -> Result<T, KilnError> {
+    let v = v.ok_or_else(|| {
+        KilnError::usage(format!("{flag} needs a value")).with_hint(format!("for example {flag} 4"))
+    })?;
+    v.parse().map_err(|_| {
+        KilnError::usage(format!("{flag} expects a whole number, not `{v}`"))
+            .with_hint(format!("for example {flag} 4"))
+    })
+}
+
+/// Splits arguments into files and options; `csv` allows --draws-csv.
+fn parse_options(args: &[String], csv: bool) -> Result<(Vec<String>, Options), KilnError> {
+    let mut o = Options {
+        json: false,
+        draws_csv: None,
+        overrides: pipeline::Overrides::default(),
+    };
+    let mut files = Vec::new();
+    let mut i = 0;
+    while i < args.len() {
+        let a = args[i].as_str();
+        let next = args.get(i + 1);
+        match a {
+            "--json" => o.json = true,
+            "--seed" => {
+                o.overrides.seed = Some(number(a, next)?);
+                i += 1;
+            }
+            "--chains" => {
+                o.overrides.chains = Some(number(a, next)?);
+                i += 1;
+            }
+            "--draws" => {
+                o.overrides.draws = Some(number(a, next)?);
+                i += 1;
+            }
+            "--warmup" => {
+                o.overrides.warmup = Some(number(a, next)?);
+                i += 1;
+            }
+            "--method" => {
+                o.overrides.method = Some(next.cloned().ok_or_else(|| {
+                    KilnError::usage("--method needs a value").with_hint("joint or alternating")
+                })?);
+                i += 1;
+            }
+            "--integrator" => {
+                o.overrides.integrator = Some(next.cloned().ok_or_else(|| {
+                    KilnError::usage("--integrator needs a value").with_hint("nuts or hmc")
+                })?);
+                i += 1;
+            }
+            "--draws-csv" if csv => {
+                o.draws_csv = Some(next.cloned().ok_or_else(|| {
+                    KilnError::usage("--draws-csv needs a path").with_hint("--draws-csv draws.csv")
+                })?);
+                i += 1;
+            }
+            s if s.starts_with('-') => {
+                let known = [
+                    "--json",
+                    "--seed",
+                    "--chains",
+                    "--draws",
+                    "--warmup",
+                    "--method",
+                    "--integrator",
+                    "--draws-csv",
+                ];
+                let hint = match kiln::error::nearest(s, known) {
+                    Some(k) => format!("did you mean `{k}`? `kiln --help` lists the options"),
+                    None => "`kiln --help` lists the options".to_string(),
+                };
+                return Err(KilnError::usage(format!("unknown option `{s}`")).with_hint(hint));
+            }
+            s => files.push(s.to_string()),
+        }
+        i += 1;
+    }
+    Ok((files, o))
+}
+
 fn run(args: &[String]) -> Result<String, KilnError> {
     let Some(cmd) = args.first() else {
         return Err(KilnError::usage("no command given")
@@ -37,34 +137,59 @@ fn run(args: &[String]) -> Result<String, KilnError> {
         "-h" | "--help" | "help" => Ok(USAGE.to_string()),
         "-V" | "--version" => Ok(format!("kiln {}", env!("CARGO_PKG_VERSION"))),
         "check" => {
-            let mut json = false;
-            let mut files = Vec::new();
-            for a in &args[1..] {
-                match a.as_str() {
-                    "--json" => json = true,
-                    s if s.starts_with('-') => {
-                        return Err(KilnError::usage(format!(
-                            "unknown option `{s}` for `kiln check`"
-                        ))
-                        .with_hint("the only option is --json"))
-                    }
-                    s => files.push(s.to_string()),
-                }
-            }
+            let (files, opts) = parse_options(&args[1..], false)?;
             if files.len() != 1 {
                 return Err(KilnError::usage("`kiln check` takes exactly one spec file")
                     .with_hint("kiln check SPEC.json [--json]"));
             }
             let spec = read_spec(&files[0])?;
             let outcome = pipeline::check(&spec)?;
-            if json {
+            if opts.json {
                 to_json(&outcome)
             } else {
                 Ok(report::check_text(&outcome))
             }
         }
+        "run" => {
+            let (files, opts) = parse_options(&args[1..], true)?;
+            if files.len() != 1 {
+                return Err(KilnError::usage("`kiln run` takes exactly one spec file")
+                    .with_hint("kiln run SPEC.json [options]"));
+            }
+            let spec = read_spec(&files[0])?;
+            let result = pipeline::run(&spec, &opts.overrides)?;
+            if let Some(path) = &opts.draws_csv {
+                let n = result.outcome.settings.draws * result.outcome.settings.chains;
+                let picks = kiln::estimates::resample(&result.draws.weight, n, result.outcome.seed);
+                let csv = report::draws_csv(&result.names, &result.draws, &picks);
+                std::fs::write(path, csv)
+                    .map_err(|e| KilnError::usage(format!("cannot write `{path}`: {e}")))?;
+            }
+            if opts.json {
+                to_json(&result.outcome)
+            } else {
+                Ok(report::run_text(&result.outcome))
+            }
+        }
+        "compare" => {
+            let (files, opts) = parse_options(&args[1..], false)?;
+            if files.len() != 2 {
+                return Err(
+                    KilnError::usage("`kiln compare` takes exactly two spec files")
+                        .with_hint("kiln compare A.json B.json [options]"),
+                );
+            }
+            let a = pipeline::run(&read_spec(&files[0])?, &opts.overrides)?;
+            let b = pipeline::run(&read_spec(&files[1])?, &opts.overrides)?;
+            let c = pipeline::compare(a.outcome, b.outcome);
+            if opts.json {
+                to_json(&c)
+            } else {
+                Ok(report::compare_text(&c, &files[0], &files[1]))
+            }
+        }
         other => {
-            let known = ["check"];
+            let known = ["check", "run", "compare"];
             let hint = match kiln::error::nearest(other, known) {
                 Some(k) => format!("did you mean `kiln {k}`?"),
                 None => "`kiln --help` lists the commands".to_string(),

@@ -197,3 +197,331 @@ pub fn check(spec: &Spec) -> Result<CheckOutcome, KilnError> {
         warnings,
     })
 }
+
+// ---------------------------------------------------------------------------------------------
+// `kiln run` and `kiln compare`.
+
+use crate::estimates::{
+    cross_checks, estimate, verdict, warnings, CrossCheck, Diagnostics, Estimates, ModeEstimate,
+    WeightedDraws,
+};
+use crate::sampler::{warm_up, Integrator, Method, RefitPolicy, SamplerOptions};
+
+/// Defaults of `kiln run` (chosen by measurement; see DEVELOPERS.md).
+pub const DEFAULT_CHAINS: usize = 4;
+pub const DEFAULT_WARMUP: usize = 1000;
+pub const DEFAULT_DRAWS: usize = 2000;
+/// Draws of the importance-sampling cross-check.
+pub const IS_DRAWS: usize = 4000;
+/// Most values the kept draws may hold in memory (draws × chains × (unknowns + 3)).
+pub const MAX_KEPT_VALUES: usize = 50_000_000;
+
+/// Command-line values that override the spec's settings.
+#[derive(Clone, Debug, Default)]
+pub struct Overrides {
+    pub seed: Option<u64>,
+    pub chains: Option<usize>,
+    pub draws: Option<usize>,
+    pub warmup: Option<usize>,
+    pub method: Option<String>,
+    pub integrator: Option<String>,
+}
+
+/// The settings a run used, after defaults and overrides.
+#[derive(Clone, Debug, Serialize)]
+pub struct RunSettings {
+    pub seed: u64,
+    pub chains: usize,
+    pub warmup: usize,
+    pub draws: usize,
+    pub method: Method,
+    pub integrator: Integrator,
+    pub target_accept: f64,
+}
+
+fn parse_method(m: &str) -> Result<Method, KilnError> {
+    match m {
+        "joint" => Ok(Method::Joint),
+        "alternating" => Ok(Method::Alternating),
+        other => Err(KilnError::usage(format!("unknown method `{other}`"))
+            .with_hint("use `joint` or `alternating`")),
+    }
+}
+
+fn parse_integrator(m: &str) -> Result<Integrator, KilnError> {
+    match m {
+        "nuts" => Ok(Integrator::Nuts),
+        "hmc" => Ok(Integrator::Hmc),
+        other => Err(KilnError::usage(format!("unknown integrator `{other}`"))
+            .with_hint("use `nuts` or `hmc`")),
+    }
+}
+
+/// Resolves the run settings: command line over spec settings over defaults.
+pub fn run_settings(spec: &Spec, o: &Overrides) -> Result<RunSettings, KilnError> {
+    let s = &spec.settings;
+    let method = o
+        .method
+        .clone()
+        .or_else(|| s.method.clone())
+        .map_or(Ok(Method::Alternating), |m| parse_method(&m))?;
+    let integrator = o
+        .integrator
+        .clone()
+        .or_else(|| s.integrator.clone())
+        .map_or(Ok(Integrator::Nuts), |m| parse_integrator(&m))?;
+    let r = RunSettings {
+        seed: o.seed.or(s.seed).unwrap_or(DEFAULT_SEED),
+        chains: o.chains.or(s.chains).unwrap_or(DEFAULT_CHAINS),
+        warmup: o.warmup.or(s.warmup).unwrap_or(DEFAULT_WARMUP),
+        draws: o.draws.or(s.draws).unwrap_or(DEFAULT_DRAWS),
+        method,
+        integrator,
+        target_accept: s.target_accept.unwrap_or(0.8),
+    };
+    if !(1..=64).contains(&r.chains) {
+        return Err(KilnError::usage(format!("{} chains requested", r.chains))
+            .with_hint("use between 1 and 64 chains"));
+    }
+    if !(10..=1_000_000).contains(&r.draws) || !(10..=1_000_000).contains(&r.warmup) {
+        return Err(
+            KilnError::usage("draws and warm-up must each be between 10 and 1000000")
+                .with_hint("for example --draws 2000 --warmup 1000"),
+        );
+    }
+    let kept = r.chains * r.draws * (spec.dimension() + 3);
+    if kept > MAX_KEPT_VALUES {
+        return Err(KilnError::limit(format!(
+            "{} chains × {} draws of {} unknowns would keep {kept} values in memory; the limit is {MAX_KEPT_VALUES}",
+            r.chains,
+            r.draws,
+            spec.dimension()
+        ))
+        .with_hint("use fewer draws or chains"));
+    }
+    Ok(r)
+}
+
+/// What `kiln run` reports.
+#[derive(Clone, Debug, Serialize)]
+pub struct RunOutcome {
+    pub title: String,
+    pub dimension: usize,
+    pub unknowns: Vec<Unknown>,
+    pub settings: RunSettings,
+    pub log_z: f64,
+    pub log_z_se: f64,
+    pub laplace_log_z: f64,
+    pub is_log_z: f64,
+    pub is_log_z_se: f64,
+    pub grid_log_z: Option<f64>,
+    pub exact_log_z: Option<f64>,
+    pub cross_checks: Vec<CrossCheck>,
+    pub verdict: String,
+    pub modes: Vec<ModeEstimate>,
+    pub mean: Vec<f64>,
+    pub sd: Vec<f64>,
+    pub quantiles: Vec<[f64; 3]>,
+    pub rhat: Vec<f64>,
+    pub ess: Vec<f64>,
+    pub ess_chains: Vec<f64>,
+    pub diagnostics: Diagnostics,
+    pub warnings: Vec<String>,
+    pub notes: Vec<String>,
+    pub seed: u64,
+    pub gradient_evaluations: u64,
+    /// Exact masses of the mixture components, in the order of `modes` (null unless a mixture).
+    pub exact_masses: Option<Vec<f64>>,
+}
+
+/// A run's report and its draws.
+pub struct RunResult {
+    pub outcome: RunOutcome,
+    pub draws: WeightedDraws,
+    pub names: Vec<String>,
+}
+
+/// Sampler options for the resolved settings (the one place defaults meet the sampler).
+pub fn sampler_options(r: &RunSettings) -> SamplerOptions {
+    let mut o = SamplerOptions::new(r.seed);
+    o.chains = r.chains;
+    o.warmup = r.warmup;
+    o.draws = r.draws;
+    o.method = r.method;
+    o.integrator = r.integrator;
+    o.target_accept = r.target_accept;
+    o.refit = RefitPolicy::Auto;
+    o
+}
+
+/// `kiln run`: modes, warm-up, sampling, estimates, cross-checks.
+pub fn run(spec: &Spec, overrides: &Overrides) -> Result<RunResult, KilnError> {
+    let settings = run_settings(spec, overrides)?;
+    let mut spec_seeded = spec.clone();
+    spec_seeded.settings.seed = Some(settings.seed);
+    let p = prepare(&spec_seeded)?;
+    let scales = mode_scales(&p);
+    let grid = grid_log_z(&p.target, &scales, p.target.evaluator_work(), GRID_WORK);
+    if let Some(axis) = grid.as_ref().and_then(|g| g.growing_along) {
+        let name = &p.target.names[axis];
+        return Err(KilnError::density(format!("the density does not seem to be normalisable along `{name}`"))
+            .with_hint(format!("its tails fall off too slowly: the integral keeps growing as the range of `{name}` widens; bound `{name}` or add a term that makes the energy rise faster, such as a prior")));
+    }
+    let opts = sampler_options(&settings);
+    run_prepared(spec, &p, grid, opts, settings)
+}
+
+/// The sampling part of a run, for a prepared target (also used by benchmarks and tests).
+pub fn run_prepared(
+    spec: &Spec,
+    p: &Prepared,
+    grid: Option<GridResult>,
+    opts: SamplerOptions,
+    settings: RunSettings,
+) -> Result<RunResult, KilnError> {
+    let laplace_log_z = p.laplace.log_zeta;
+    let mut warm = warm_up(&p.target, p.search.modes.clone(), p.laplace.clone(), opts)?;
+    let records =
+        crate::sampler::run_chains(&mut warm.chains, &warm.plan, warm.plan.options.draws, false);
+    let (mut est, draws) = estimate(&p.target, &warm.plan, &records, IS_DRAWS);
+    est.diagnostics.step_sizes = warm.chains.iter().map(|c| c.step_size()).collect();
+    let exact = p.target.mixture_truth();
+    let exact_log_z = exact.as_ref().map(|t| t.log_z);
+    let grid_pair = grid
+        .as_ref()
+        .filter(|g| g.log_z.is_finite())
+        .map(|g| (g.log_z, g.change));
+    let checks = cross_checks(
+        est.log_z,
+        est.log_z_se,
+        exact_log_z,
+        grid_pair,
+        (est.is_log_z, est.is_log_z_se, est.diagnostics.is_ess),
+        laplace_log_z,
+    );
+    let v = verdict(&checks, est.log_z, est.log_z_se);
+    let names = p.target.names.clone();
+    let iterations = warm.plan.options.draws * warm.plan.options.chains;
+    let mut warns = warnings(&est, &checks, &names, warm.plan.is_tempered(), iterations);
+    warns.extend(p.search.notes.iter().cloned());
+    if let Some(g) = &grid {
+        warns.extend(g.warnings.iter().cloned());
+    }
+    let mut notes = warm.plan.notes.clone();
+    if warm.plan.new_modes > 0 {
+        notes.push(format!(
+            "the chains found {} mode(s) the optimiser had missed",
+            warm.plan.new_modes
+        ));
+    }
+    let gradient_evaluations = p.search.evaluations
+        + warm
+            .chains
+            .iter()
+            .map(|c| c.gradient_evaluations())
+            .sum::<u64>()
+        + warm.plan.discovery_evaluations;
+    // Exact masses, matched to modes by nearest component mean.
+    let exact_masses = exact.map(|t| {
+        est.modes
+            .iter()
+            .map(|m| {
+                let best = (0..t.means.len())
+                    .min_by(|&a, &b| {
+                        dist2(&t.means[a], &m.location).total_cmp(&dist2(&t.means[b], &m.location))
+                    })
+                    .unwrap_or(0);
+                t.masses[best]
+            })
+            .collect()
+    });
+    let Estimates {
+        log_z,
+        log_z_se,
+        is_log_z,
+        is_log_z_se,
+        modes,
+        mean,
+        sd,
+        quantiles,
+        rhat,
+        ess,
+        ess_chains,
+        diagnostics,
+    } = est;
+    let outcome = RunOutcome {
+        title: spec.title.clone(),
+        dimension: p.target.dim(),
+        unknowns: spec
+            .variables
+            .iter()
+            .map(|v| Unknown {
+                name: v.name.clone(),
+                lower: v.bounds.lower,
+                upper: v.bounds.upper,
+            })
+            .collect(),
+        settings,
+        log_z,
+        log_z_se,
+        laplace_log_z,
+        is_log_z,
+        is_log_z_se,
+        grid_log_z: grid_pair.map(|g| g.0),
+        exact_log_z,
+        cross_checks: checks,
+        verdict: v,
+        modes,
+        mean,
+        sd,
+        quantiles,
+        rhat,
+        ess,
+        ess_chains,
+        diagnostics,
+        warnings: warns,
+        notes,
+        seed: p.seed,
+        gradient_evaluations,
+        exact_masses,
+    };
+    Ok(RunResult {
+        outcome,
+        draws,
+        names,
+    })
+}
+
+fn dist2(a: &[f64], b: &[f64]) -> f64 {
+    a.iter().zip(b).map(|(x, y)| (x - y) * (x - y)).sum()
+}
+
+/// What `kiln compare` reports: log(Z_A / Z_B) ± SE from two independent runs.
+#[derive(Clone, Debug, Serialize)]
+pub struct CompareOutcome {
+    pub log_bayes_factor: f64,
+    pub log_bayes_factor_se: f64,
+    pub a: RunOutcome,
+    pub b: RunOutcome,
+    pub warnings: Vec<String>,
+}
+
+pub fn compare(a: RunOutcome, b: RunOutcome) -> CompareOutcome {
+    let lbf = a.log_z - b.log_z;
+    let se = crate::maths::sqrt(a.log_z_se * a.log_z_se + b.log_z_se * b.log_z_se);
+    let mut warnings: Vec<String> = a.warnings.iter().map(|w| format!("A: {w}")).collect();
+    warnings.extend(b.warnings.iter().map(|w| format!("B: {w}")));
+    if a.verdict.starts_with("DISAGREEMENT") {
+        warnings.push("A's cross-checks disagree: the Bayes factor inherits that doubt".into());
+    }
+    if b.verdict.starts_with("DISAGREEMENT") {
+        warnings.push("B's cross-checks disagree: the Bayes factor inherits that doubt".into());
+    }
+    CompareOutcome {
+        log_bayes_factor: lbf,
+        log_bayes_factor_se: se,
+        a,
+        b,
+        warnings,
+    }
+}

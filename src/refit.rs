@@ -3,20 +3,23 @@
 //! Owns: a weighted EM fit of a Gaussian mixture (Dempster, Laird & Rubin 1977, "Maximum
 //! likelihood from incomplete data via the EM algorithm", JRSS B 39, 1), seeded at the known
 //! modes and, for the remaining components, by weighted k-means++ picks (Arthur & Vassilvitskii
-//! 2007); covariances are inflated (×1.44, i.e. standard deviations ×1.2) and a broad defensive
-//! component (5 % weight, twice the overall standard deviation; Hesterberg 1995, "Weighted
-//! average importance sampling and defensive mixture distributions", Technometrics 37, 185)
-//! keeps q's tails heavier than the fit's.
+//! 2007). The fitted components become Student-t components with [`NU`] degrees of freedom and
+//! the fitted covariance as scale matrix (so their covariance is inflated by ν/(ν − 2)), which
+//! keeps q's tails heavier than the target's for light- and moderately heavy-tailed targets:
+//! where q is much lighter than the target, p(β=1|x) grows like |Δ| and the log Z estimate's
+//! variance can become infinite. No broad "defensive" component is added: where the target is
+//! nearly zero over most of a box (sharp peaks), its mass there makes p(β=0|x) ≈ Δ large and the
+//! variance of log Z much worse.
 //! Must not: decide when to refit (the sampler does), or touch log ζ.
 
 use crate::gaussian::{Gaussian, Mixture};
 use crate::maths::{exp, ln, log_sum_exp};
 use crate::rng::Stream;
 
-/// Variance inflation of refitted components.
-const INFLATE: f64 = 1.44;
-/// Weight of the defensive component.
-const DEFENSIVE: f64 = 0.05;
+/// Degrees of freedom of refitted components.
+pub const NU: f64 = 7.0;
+/// Scale inflation of refitted components (1: the t's scale matrix is the fitted covariance).
+const INFLATE: f64 = 1.0;
 
 fn weighted_moments(points: &[Vec<f64>], w: &[f64]) -> (Vec<f64>, Vec<f64>) {
     let d = points[0].len();
@@ -58,14 +61,14 @@ pub fn refit(
         return None;
     }
     let ess = total * total / w.iter().map(|x| x * x).sum::<f64>();
-    let (gmean, gcov) = weighted_moments(points, w);
+    let (_, gcov) = weighted_moments(points, w);
     let ridge: Vec<f64> = (0..d).map(|i| 1e-6 * gcov[i * d + i].max(1e-12)).collect();
-    // Enough weighted points per component: about 20 D effective draws each.
-    let k_cap = ((ess / (20.0 * d as f64)).floor() as usize).max(1);
-    let k = k_max
-        .max(seeds.len())
-        .min(k_cap.max(seeds.len().min(k_cap)))
-        .max(1);
+    // Every known mode keeps a component; extra ones only where there are about 10 D
+    // effective draws for each.
+    let extra_cap = (ess / (10.0 * d as f64)).floor() as usize;
+    let k = seeds.len().max(k_max.min(seeds.len() + extra_cap)).max(1);
+    // A component with fewer effective draws than this keeps its seed's shape.
+    let min_eff = 5.0 * (d + 1) as f64;
 
     // Initial means: known modes first, then weighted k-means++ picks.
     let mut means: Vec<Vec<f64>> = seeds.iter().take(k).map(|g| g.mean.clone()).collect();
@@ -149,8 +152,17 @@ pub fn refit(
         // M step.
         for c in 0..k {
             let wc: f64 = (0..n).map(|i| w[i] * resp[i * k + c]).sum();
+            let wc2: f64 = (0..n).map(|i| (w[i] * resp[i * k + c]).powi(2)).sum();
+            let n_eff = if wc2 > 0.0 { wc * wc / wc2 } else { 0.0 };
             weights[c] = wc / total;
             if wc <= 1e-12 * total {
+                weights[c] = if c < seeds.len() { 1e-6 } else { 0.0 };
+                continue;
+            }
+            if n_eff < min_eff {
+                if c < seeds.len() {
+                    continue; // too few draws to move a known mode's component
+                }
                 weights[c] = 0.0;
                 continue;
             }
@@ -188,24 +200,17 @@ pub fn refit(
     let mut comps = Vec::new();
     let mut ws = Vec::new();
     for c in 0..k {
-        if weights[c] < 1e-4 {
+        if weights[c] < 1e-4 && c >= seeds.len() {
             continue;
         }
         let inflated: Vec<f64> = covs[c].iter().map(|v| v * INFLATE).collect();
-        if let Some(g) = Gaussian::from_flat(means[c].clone(), &inflated, f64::INFINITY) {
+        if let Some(g) = Gaussian::from_flat(means[c].clone(), &inflated, NU) {
             comps.push(g);
-            ws.push(weights[c] * (1.0 - DEFENSIVE));
+            ws.push(weights[c].max(1e-6));
         }
     }
     if comps.is_empty() {
         return None;
-    }
-    let broad: Vec<f64> = (0..d * d)
-        .map(|ij| 4.0 * gcov[ij] + if ij / d == ij % d { ridge[ij / d] } else { 0.0 })
-        .collect();
-    if let Some(g) = Gaussian::from_flat(gmean, &broad, f64::INFINITY) {
-        comps.push(g);
-        ws.push(DEFENSIVE);
     }
     Some(Mixture::new(comps, &ws))
 }

@@ -227,3 +227,229 @@ mod tests {
         assert_eq!(num(2.0), "2");
     }
 }
+
+/// `x ± e` with the error's precision.
+pub fn pm(v: f64, e: f64) -> String {
+    if !v.is_finite() {
+        return num(v);
+    }
+    if !(e.is_finite() && e > 0.0) {
+        return format!("{v:.4}");
+    }
+    if e < 5e-5 {
+        return format!("{v:.4} ± {e:.1e}");
+    }
+    let digits = (-libm::floor(libm::log10(e)) as i32 + 1).clamp(1, 8) as usize;
+    format!("{v:.digits$} ± {e:.digits$}")
+}
+
+/// The report of `kiln run`.
+pub fn run_text(r: &crate::pipeline::RunOutcome) -> String {
+    let mut o = String::new();
+    let title = if r.title.is_empty() {
+        "(untitled)"
+    } else {
+        &r.title
+    };
+    let _ = writeln!(o, "Kiln run: {title}");
+    let s = &r.settings;
+    let _ = writeln!(
+        o,
+        "  seed {}, {} chains × ({} warm-up + {} draws), method {:?}, integrator {:?}, {} energy evaluations",
+        s.seed, s.chains, s.warmup, s.draws, s.method, s.integrator, r.gradient_evaluations
+    );
+    let _ = writeln!(o, "\nlog Z = {}", pm(r.log_z, r.log_z_se));
+    let mut rows = vec![vec![
+        "check".to_string(),
+        "log Z".to_string(),
+        "error".to_string(),
+        "vs sampler".to_string(),
+        "".to_string(),
+    ]];
+    for c in &r.cross_checks {
+        rows.push(vec![
+            c.name.clone(),
+            format!("{:.4}", c.log_z),
+            c.error.map_or("-".to_string(), |e| format!("{e:.1e}")),
+            c.z_score
+                .map_or(format!("{:+.3} nats", r.log_z - c.log_z), |z| {
+                    format!("{z:+.1} SE")
+                }),
+            if c.error.is_some() && !c.agrees {
+                "DISAGREES".into()
+            } else {
+                String::new()
+            },
+        ]);
+    }
+    o.push_str(&table(&rows));
+    let _ = writeln!(o, "  verdict: {}", r.verdict);
+
+    let _ = writeln!(o, "\nModes");
+    let mut h = vec!["#".to_string()];
+    h.extend(r.unknowns.iter().map(|u| u.name.clone()));
+    h.extend([
+        "mass".into(),
+        "± SE".into(),
+        "Laplace".into(),
+        "visited".into(),
+    ]);
+    if r.exact_masses.is_some() {
+        h.push("exact".into());
+    }
+    let mut rows = vec![h];
+    for (k, m) in r.modes.iter().take(30).enumerate() {
+        let mut row = vec![format!(
+            "{}{}",
+            k + 1,
+            if m.found_by == "sampler" { "+" } else { "" }
+        )];
+        row.extend(m.location.iter().map(|v| num(*v)));
+        row.push(format!("{:.4}", m.mass));
+        row.push(format!("{:.4}", m.mass_se));
+        row.push(format!("{:.4}", m.laplace_mass));
+        row.push(if m.visited { "yes".into() } else { "NO".into() });
+        if let Some(ex) = &r.exact_masses {
+            row.push(format!("{:.4}", ex[k]));
+        }
+        rows.push(row);
+    }
+    o.push_str(&table(&rows));
+    if r.modes.len() > 30 {
+        let _ = writeln!(o, "  … and {} more (see --json)", r.modes.len() - 30);
+    }
+    if r.modes.iter().any(|m| m.found_by == "sampler") {
+        let _ = writeln!(o, "  + found by the chains, not by the optimiser");
+    }
+
+    let _ = writeln!(o, "\nUnknowns (target draws, weighted by p(β=1|x))");
+    let mut rows = vec![
+        ["unknown", "mean", "sd", "5%", "50%", "95%", "R-hat", "ESS"]
+            .iter()
+            .map(|s| s.to_string())
+            .collect::<Vec<_>>(),
+    ];
+    for (j, u) in r.unknowns.iter().enumerate() {
+        rows.push(vec![
+            u.name.clone(),
+            num(r.mean[j]),
+            num(r.sd[j]),
+            num(r.quantiles[j][0]),
+            num(r.quantiles[j][1]),
+            num(r.quantiles[j][2]),
+            format!("{:.3}", r.rhat[j]),
+            format!("{:.0}", r.ess[j]),
+        ]);
+    }
+    o.push_str(&table(&rows));
+
+    let d = &r.diagnostics;
+    let _ = writeln!(o, "\nDiagnostics");
+    let _ = writeln!(
+        o,
+        "  acceptance {:.2}, divergences {}, max tree depth reached {} times",
+        d.acceptance, d.divergences, d.max_depth_hits
+    );
+    let _ = writeln!(
+        o,
+        "  β round trips per chain {:?}, time near β = 1: {:.1}%, independence moves accepted {:.1}%",
+        d.round_trips,
+        100.0 * d.share_near_beta_one,
+        100.0 * d.independence_acceptance
+    );
+    let _ = writeln!(
+        o,
+        "  log Z series ESS {:.0}; bias span {:.2} nats; base: {} component(s){}",
+        d.log_z_ess,
+        d.bias_span,
+        d.base_components,
+        if d.base_refitted {
+            ", refitted in warm-up"
+        } else {
+            " (Laplace)"
+        }
+    );
+    for n in &r.notes {
+        let _ = writeln!(o, "  note: {n}");
+    }
+    if r.warnings.is_empty() {
+        let _ = writeln!(o, "\nNo warnings.");
+    } else {
+        let _ = writeln!(o, "\nWarnings");
+        for w in &r.warnings {
+            let _ = writeln!(o, "  - {w}");
+        }
+    }
+    o
+}
+
+/// The report of `kiln compare`.
+pub fn compare_text(c: &crate::pipeline::CompareOutcome, name_a: &str, name_b: &str) -> String {
+    let mut o = String::new();
+    let _ = writeln!(o, "Kiln compare\n");
+    let _ = writeln!(o, "  A: {name_a}  log Z = {}", pm(c.a.log_z, c.a.log_z_se));
+    let _ = writeln!(o, "  B: {name_b}  log Z = {}", pm(c.b.log_z, c.b.log_z_se));
+    let _ = writeln!(
+        o,
+        "\nlog Bayes factor log(Z_A / Z_B) = {}",
+        pm(c.log_bayes_factor, c.log_bayes_factor_se)
+    );
+    let _ = writeln!(
+        o,
+        "  A's verdict: {}\n  B's verdict: {}",
+        c.a.verdict, c.b.verdict
+    );
+    if c.warnings.is_empty() {
+        let _ = writeln!(o, "\nNo warnings.");
+    } else {
+        let _ = writeln!(o, "\nWarnings");
+        for w in &c.warnings {
+            let _ = writeln!(o, "  - {w}");
+        }
+    }
+    o
+}
+
+/// An RFC 4180 field: quoted when it holds a comma, quote or line break.
+fn csv_field(s: &str) -> String {
+    if s.contains([',', '"', '\n', '\r']) {
+        format!("\"{}\"", s.replace('"', "\"\""))
+    } else {
+        s.to_string()
+    }
+}
+
+/// Resampled, unweighted target draws as CSV (RFC 4180): the unknowns, then `beta` (where the
+/// draw was made), `weight` (its p(β=1|x) weight relative to the mean, before resampling),
+/// `chain`, `iteration` (1-based) and `mode` (1-based, empty when far from every mode).
+pub fn draws_csv(
+    names: &[String],
+    draws: &crate::estimates::WeightedDraws,
+    picks: &[usize],
+) -> String {
+    let d = names.len();
+    let mut o = String::new();
+    let mut header: Vec<String> = names.iter().map(|n| csv_field(n)).collect();
+    header.extend(
+        ["beta", "weight", "chain", "iteration", "mode"]
+            .iter()
+            .map(|s| s.to_string()),
+    );
+    o.push_str(&header.join(","));
+    o.push_str("\r\n");
+    for &i in picks {
+        let mut row: Vec<String> = (0..d).map(|j| format!("{}", draws.x[i * d + j])).collect();
+        row.push(format!("{}", draws.beta[i]));
+        row.push(format!("{}", draws.weight[i]));
+        row.push(format!("{}", draws.chain[i] + 1));
+        row.push(format!("{}", draws.iteration[i] + 1));
+        row.push(if draws.mode[i] == usize::MAX {
+            String::new()
+        } else {
+            format!("{}", draws.mode[i] + 1)
+        });
+        o.push_str(&row.join(","));
+        o.push_str("\r\n");
+    }
+    o
+}

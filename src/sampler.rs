@@ -60,6 +60,10 @@ pub enum RefitPolicy {
 
 /// Bias span (nats) above which the base counts as poor and is refitted.
 pub const REFIT_SPAN: f64 = 1.0;
+/// Variance of the linearised log Z series above which the base counts as poor. An exact base
+/// gives 0; a good Laplace base a few hundredths; 0.25 means each draw carries about a quarter
+/// of a nat² of noise, which costs many draws for a small SE.
+pub const REFIT_VARIANCE: f64 = 0.25;
 
 #[derive(Clone, Debug)]
 pub struct SamplerOptions {
@@ -120,6 +124,8 @@ pub struct Plan {
     pub refitted: bool,
     /// Modes the chains found that the optimiser had not.
     pub new_modes: usize,
+    /// Gradient evaluations spent optimising from draws.
+    pub discovery_evaluations: u64,
     pub notes: Vec<String>,
 }
 
@@ -211,6 +217,7 @@ impl Plan {
             laplace,
             refitted: false,
             new_modes: 0,
+            discovery_evaluations: 0,
             notes: Vec::new(),
         };
         plan.set_metric(target.dim(), false)?;
@@ -467,8 +474,12 @@ impl Chain {
         rec
     }
 
+    pub fn step_size(&self) -> f64 {
+        self.eps
+    }
+
     pub fn gradient_evaluations(&self) -> u64 {
-        self.tempered.gradient_evaluations + self.tempered.target.evaluations
+        self.tempered.target.evaluations
     }
 
     fn set_base(&mut self, base: &Base) {
@@ -511,8 +522,8 @@ pub fn run_chains(
 
 /// Warm-up windows as shares of the warm-up length.
 pub const WINDOWS: [f64; 7] = [0.08, 0.08, 0.12, 0.12, 0.15, 0.2, 0.25];
-/// After which window the base may be refitted.
-pub const REFIT_AFTER: usize = 2;
+/// After which windows the base may be refitted (and chains' new modes looked for).
+pub const REFIT_AFTER: [usize; 2] = [2, 4];
 
 /// Lengths of the warm-up windows for `warmup` iterations (they add up to `warmup`).
 pub fn window_lengths(warmup: usize) -> Vec<usize> {
@@ -561,6 +572,31 @@ pub fn log_z_from(bias: &Bias, base: &Base, records: &[Record]) -> f64 {
     let g0 = bias.values[0];
     let g1 = bias.values[bias.values.len() - 1];
     base.log_zeta + g0 - g1 + log_sum_exp(&l1) - log_sum_exp(&l0)
+}
+
+/// Variance of z_i = p1_i/mean(p1) − p0_i/mean(p0) over the records (the per-draw noise of
+/// the log Z estimate).
+pub fn log_z_series_variance(bias: &Bias, records: &[Record]) -> f64 {
+    let mut s = vec![0.0; bias.knots.len()];
+    let (mut l1, mut l0) = (Vec::new(), Vec::new());
+    for r in records {
+        for &delta in &r.delta {
+            let (a, b) = bias.log_p1_p0(delta, &mut s);
+            l1.push(a);
+            l0.push(b);
+        }
+    }
+    let n = l1.len() as f64;
+    if n == 0.0 {
+        return 0.0;
+    }
+    let (m1, m0) = (log_sum_exp(&l1), log_sum_exp(&l0));
+    l1.iter()
+        .zip(&l0)
+        .map(|(a, b)| exp(a - m1 + ln(n)) - exp(b - m0 + ln(n)))
+        .map(|z| z * z)
+        .sum::<f64>()
+        / n
 }
 
 /// Learning rate of the bias update after warm-up window `w` (counted from the last reset).
@@ -656,6 +692,7 @@ impl Plan {
                 }
             }
         }
+        self.discovery_evaluations += ev.evaluations;
         if added > 0 {
             self.laplace = Laplace::from_modes(&self.modes)?;
         }
@@ -663,33 +700,44 @@ impl Plan {
     }
 
     /// Refits the base to the weighted draws of `records` and re-estimates log ζ.
+    /// Refits the base to the weighted draws of the windows since the last reset (each window
+    /// with the bias it was drawn under; weights normalised within each window), and takes
+    /// log ζ from the last window's estimate.
     fn refit_base(
         &mut self,
         target: &Target,
-        records: &[Record],
+        history: &[(Bias, Vec<Record>)],
         rng: &mut Stream,
     ) -> Result<bool, KilnError> {
         let d = self.dim();
         let mut points = Vec::new();
-        let mut log_w = Vec::new();
-        let mut s = vec![0.0; self.bias.knots.len()];
-        for r in records {
-            for (i, &delta) in r.delta.iter().enumerate() {
-                let (l1, _) = self.bias.log_p1_p0(delta, &mut s);
-                if l1.is_finite() {
-                    points.push(r.z[i * d..(i + 1) * d].to_vec());
-                    log_w.push(l1);
+        let mut w = Vec::new();
+        for (used, records) in history {
+            let mut s = vec![0.0; used.knots.len()];
+            let mut lw = Vec::new();
+            let mut pts = Vec::new();
+            for r in records {
+                for (i, &delta) in r.delta.iter().enumerate() {
+                    let (l1, _) = used.log_p1_p0(delta, &mut s);
+                    if l1.is_finite() {
+                        pts.push(r.z[i * d..(i + 1) * d].to_vec());
+                        lw.push(l1);
+                    }
                 }
             }
+            let m = log_sum_exp(&lw) - ln(lw.len().max(1) as f64);
+            w.extend(lw.iter().map(|l| exp(l - m)));
+            points.extend(pts);
         }
-        let m = log_w.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-        let w: Vec<f64> = log_w.iter().map(|l| exp(l - m)).collect();
+        let Some((last_bias, last_records)) = history.last() else {
+            return Ok(false);
+        };
         let seeds: Vec<Gaussian> = self.laplace.base.components.clone();
-        let k_max = (2 * seeds.len()).max(8).min(seeds.len() + 16);
+        let k_max = (2 * seeds.len()).max(16).min(seeds.len() + 32);
         let Some(fit) = crate::refit::refit(&points, &w, &seeds, k_max, rng) else {
             return Ok(false);
         };
-        let log_zeta = log_z_from(&self.bias, &self.base, records);
+        let log_zeta = log_z_from(last_bias, &self.base, last_records);
         if !log_zeta.is_finite() {
             return Ok(false);
         }
@@ -698,7 +746,7 @@ impl Plan {
             log_zeta,
         };
         self.bias = Bias::flat(self.options.knots);
-        self.set_metric(target.dim(), true)?;
+        self.set_metric(target.dim(), false)?;
         self.refitted = true;
         Ok(true)
     }
@@ -721,46 +769,40 @@ pub fn warm_up(
     let mut merge_rng = Stream::new(plan.options.seed, Purpose::Resample, 1 << 20);
     let mut all = Vec::new();
     let mut since_reset = 0;
+    // Windows drawn since the base last changed, with the bias each was drawn under.
+    let mut history: Vec<(Bias, Vec<Record>)> = Vec::new();
     for (w, &len) in window_lengths(plan.options.warmup).iter().enumerate() {
         let records = run_chains(&mut chains, &plan, len, true);
         if plan.is_tempered() && len > 0 {
+            let used = plan.bias.clone();
             if plan.options.learn_bias {
                 plan.update_bias(&records, bias_step(since_reset));
                 since_reset += 1;
             }
-            if w == REFIT_AFTER {
+            history.push((used.clone(), records.clone()));
+            if REFIT_AFTER.contains(&w) {
                 let found = plan.discover_modes(target, &records)?;
                 plan.new_modes += found;
-                let poor = plan.bias_span() > REFIT_SPAN;
+                let spread = log_z_series_variance(&used, &records);
+                let poor = plan.bias_span() > REFIT_SPAN || spread > REFIT_VARIANCE;
                 let refit = match plan.options.refit {
-                    RefitPolicy::Always => true,
+                    RefitPolicy::Always => w == REFIT_AFTER[0],
                     RefitPolicy::Never => false,
                     RefitPolicy::Auto => poor || found > 0,
                 };
-                if refit {
-                    // Refit with the records of this window, made under the current bias.
-                    let mut pre = plan.clone();
-                    if plan.options.learn_bias {
-                        // The bias was just updated; estimate with the one the draws were made under.
-                        pre.bias = Bias::flat(plan.options.knots);
+                if refit && plan.refit_base(target, &history, &mut merge_rng)? {
+                    for c in chains.iter_mut() {
+                        c.set_base(&plan.base);
+                        c.restart_adaptation(&plan);
                     }
-                    let _ = pre;
-                    if plan.refit_base(target, &records, &mut merge_rng)? {
-                        for c in chains.iter_mut() {
-                            c.set_base(&plan.base);
-                            c.restart_adaptation(&plan);
-                        }
-                        since_reset = 0;
-                        plan.notes.push(format!(
-                            "the base was refitted to warm-up draws ({} components){}",
-                            plan.base.q.components.len(),
-                            if found > 0 {
-                                format!(", after the chains found {found} new mode(s)")
-                            } else {
-                                String::new()
-                            }
-                        ));
-                    }
+                    since_reset = 0;
+                    history.clear();
+                    plan.notes.push(format!(
+                        "the base was refitted to the draws of warm-up windows 1–{} ({} Student-t components){}",
+                        w + 1,
+                        plan.base.q.components.len(),
+                        if found > 0 { format!(", after the chains found {found} new mode(s)") } else { String::new() }
+                    ));
                 }
             }
             if Chain::joint(&plan) {

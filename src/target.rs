@@ -270,7 +270,7 @@ pub struct TargetEval {
     inner: Inner,
     x: Vec<f64>,
     gx: Vec<f64>,
-    /// Energy-and-gradient evaluations so far (the unit of cost).
+    /// Energy evaluations so far, with or without gradient (the unit of cost).
     pub evaluations: u64,
 }
 
@@ -299,6 +299,7 @@ impl TargetEval {
 
     /// The energy in unconstrained coordinates: user energy − log-Jacobian.
     pub fn energy(&mut self, z: &[f64]) -> f64 {
+        self.evaluations += 1;
         let mut log_jac = 0.0;
         for i in 0..z.len() {
             let (x, _, lj, _) = self.transforms[i].with_jacobian(z[i]);
