@@ -92,6 +92,7 @@ pub fn ess(chains: &[&[f64]]) -> f64 {
 }
 
 /// Φ⁻¹(p): Acklam's rational approximation refined by one Halley step on erfc.
+#[allow(clippy::excessive_precision)]
 pub fn normal_quantile(p: f64) -> f64 {
     if p <= 0.0 {
         return f64::NEG_INFINITY;

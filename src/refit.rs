@@ -152,7 +152,9 @@ pub fn refit(
         // M step.
         for c in 0..k {
             let wc: f64 = (0..n).map(|i| w[i] * resp[i * k + c]).sum();
-            let wc2: f64 = (0..n).map(|i| (w[i] * resp[i * k + c]).powi(2)).sum();
+            let wc2: f64 = (0..n)
+                .map(|i| (w[i] * resp[i * k + c]) * (w[i] * resp[i * k + c]))
+                .sum();
             let n_eff = if wc2 > 0.0 { wc * wc / wc2 } else { 0.0 };
             weights[c] = wc / total;
             if wc <= 1e-12 * total {
@@ -240,13 +242,7 @@ mod tests {
             .iter()
             .zip(m.weights())
             .filter(|(_, w)| *w > 0.1)
-            .map(|(c, w)| {
-                (
-                    c.mean[0],
-                    c.scale_matrix()[0] / INFLATE,
-                    w / (1.0 - DEFENSIVE),
-                )
-            })
+            .map(|(c, w)| (c.mean[0], c.scale_matrix()[0] / INFLATE, w))
             .collect();
         found.sort_by(|a, b| a.0.total_cmp(&b.0));
         assert_eq!(found.len(), 2, "{found:?}");

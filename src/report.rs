@@ -213,21 +213,6 @@ pub fn check_text(c: &CheckOutcome) -> String {
     o
 }
 
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn numbers_are_short_and_readable() {
-        assert_eq!(num(1.23456789), "1.23457");
-        assert_eq!(num(-0.5), "-0.5");
-        assert_eq!(num(235.856), "235.856");
-        assert_eq!(num(1e-9), "1.0000e-9");
-        assert_eq!(num(31.4), "31.4");
-        assert_eq!(num(2.0), "2");
-    }
-}
-
 /// `x ± e` with the error's precision.
 pub fn pm(v: f64, e: f64) -> String {
     if !v.is_finite() {
@@ -452,4 +437,19 @@ pub fn draws_csv(
         o.push_str("\r\n");
     }
     o
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn numbers_are_short_and_readable() {
+        assert_eq!(num(1.23456789), "1.23457");
+        assert_eq!(num(-0.5), "-0.5");
+        assert_eq!(num(235.856), "235.856");
+        assert_eq!(num(1e-9), "1.0000e-9");
+        assert_eq!(num(31.4), "31.4");
+        assert_eq!(num(2.0), "2");
+    }
 }
