@@ -308,6 +308,9 @@ pub struct Diagnostics {
     pub step_sizes: Vec<f64>,
     /// Importance sampling from the base: effective sample size of its weights.
     pub is_ess: f64,
+    /// Share of the target weight in draws far (squared Mahalanobis distance above 30 + 4D)
+    /// from the mode they are assigned to.
+    pub far_from_modes: f64,
 }
 
 #[derive(Clone, Debug, Serialize)]
@@ -340,7 +343,7 @@ pub struct WeightedDraws {
     pub weight: Vec<f64>,
     pub chain: Vec<usize>,
     pub iteration: Vec<usize>,
-    /// Mode index (0-based) or `usize::MAX` when far from every mode.
+    /// Index (0-based) of the mode whose Laplace component is most responsible for the draw.
     pub mode: Vec<usize>,
 }
 
@@ -440,6 +443,7 @@ pub fn estimate(
     let mut chain = Vec::with_capacity(total);
     let mut iteration = Vec::with_capacity(total);
     let far = 30.0 + 4.0 * d as f64;
+    let mut far_weight = 0.0;
     for (c, r) in records.iter().enumerate() {
         for i in 0..r.beta.len() {
             let z = &r.z[i * d..(i + 1) * d];
@@ -450,11 +454,10 @@ pub fn estimate(
                 .unwrap_or(0);
             let near =
                 crate::modes::mahalanobis2(z, &plan.modes[best].z, &plan.modes[best].hessian);
-            mode.push(if near <= far || !near.is_finite() {
-                best
-            } else {
-                usize::MAX
-            });
+            if near > far {
+                far_weight += wn[mode.len()];
+            }
+            mode.push(best);
             beta.push(r.beta[i]);
             chain.push(c);
             iteration.push(i);
@@ -561,6 +564,7 @@ pub fn estimate(
         base_components: plan.base.q.components.len(),
         step_sizes: Vec::new(),
         is_ess,
+        far_from_modes: far_weight / n.max(1.0),
     };
     let est = Estimates {
         log_z,
@@ -873,6 +877,12 @@ pub fn warnings(
                 m.laplace_mass
             ));
         }
+    }
+    if dg.far_from_modes > 0.01 {
+        w.push(format!(
+            "{:.1}% of the target's weight lies far from every known mode: the mode table may be incomplete (a mode may have been missed) or the modes have heavy tails",
+            100.0 * dg.far_from_modes
+        ));
     }
     for c in checks {
         if c.error.is_some() && !c.agrees {

@@ -403,11 +403,12 @@ pub fn run_prepared(
     let names = p.target.names.clone();
     let iterations = warm.plan.options.draws * warm.plan.options.chains;
     let mut warns = warnings(&est, &checks, &names, warm.plan.is_tempered(), iterations);
-    warns.extend(p.search.notes.iter().cloned());
+
     if let Some(g) = &grid {
         warns.extend(g.warnings.iter().cloned());
     }
-    let mut notes = warm.plan.notes.clone();
+    let mut notes = p.search.notes.clone();
+    notes.extend(warm.plan.notes.iter().cloned());
     if warm.plan.new_modes > 0 {
         notes.push(format!(
             "the chains found {} mode(s) the optimiser had missed",

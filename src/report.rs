@@ -406,7 +406,7 @@ fn csv_field(s: &str) -> String {
 
 /// Resampled, unweighted target draws as CSV (RFC 4180): the unknowns, then `beta` (where the
 /// draw was made), `weight` (its p(β=1|x) weight relative to the mean, before resampling),
-/// `chain`, `iteration` (1-based) and `mode` (1-based, empty when far from every mode).
+/// `chain`, `iteration` (1-based) and `mode` (1-based, as in the mode table).
 pub fn draws_csv(
     names: &[String],
     draws: &crate::estimates::WeightedDraws,
@@ -428,11 +428,7 @@ pub fn draws_csv(
         row.push(format!("{}", draws.weight[i]));
         row.push(format!("{}", draws.chain[i] + 1));
         row.push(format!("{}", draws.iteration[i] + 1));
-        row.push(if draws.mode[i] == usize::MAX {
-            String::new()
-        } else {
-            format!("{}", draws.mode[i] + 1)
-        });
+        row.push(format!("{}", draws.mode[i] + 1));
         o.push_str(&row.join(","));
         o.push_str("\r\n");
     }

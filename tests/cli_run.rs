@@ -1,0 +1,157 @@
+//! `kiln run` and `kiln compare` through the real binary: the JSON contract, the draws CSV,
+//! settings and overrides, and bad options.
+
+// Reference values use the platform maths library on purpose.
+#![allow(clippy::disallowed_methods)]
+
+use serde_json::Value;
+use std::path::PathBuf;
+use std::process::Command;
+
+fn dir(name: &str) -> PathBuf {
+    let d = std::env::temp_dir().join(format!("kiln-cli-run-{}-{name}", std::process::id()));
+    std::fs::create_dir_all(&d).unwrap();
+    d
+}
+
+fn kiln(args: &[&str]) -> (i32, String, String) {
+    let out = Command::new(env!("CARGO_BIN_EXE_kiln"))
+        .args(args)
+        .output()
+        .unwrap();
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stdout).into_owned(),
+        String::from_utf8_lossy(&out.stderr).into_owned(),
+    )
+}
+
+fn write(d: &PathBuf, name: &str, text: &str) -> String {
+    let p = d.join(name);
+    std::fs::write(&p, text).unwrap();
+    p.to_string_lossy().into_owned()
+}
+
+const MIXTURE_A: &str = r#"{"title": "A", "mixture": [
+    {"weight": 2.0, "mean": [-3, 0], "sd": [0.6, 0.8]},
+    {"weight": 1.0, "mean": [3, 1], "sd": [0.9, 0.5]}],
+    "settings": {"seed": 5, "draws": 600, "warmup": 400, "chains": 3}}"#;
+const MIXTURE_B: &str = r#"{"title": "B", "mixture": [
+    {"weight": 0.5, "mean": [0, 0], "cov": [[1, 0.3], [0.3, 1]]}],
+    "settings": {"draws": 600, "warmup": 400, "chains": 3}}"#;
+
+#[test]
+fn run_json_has_the_documented_fields_and_settings_apply() {
+    let d = dir("json");
+    let a = write(&d, "a.json", MIXTURE_A);
+    let (code, out, err) = kiln(&["run", &a, "--json"]);
+    assert_eq!(code, 0, "{err}");
+    let v: Value = serde_json::from_str(&out).unwrap();
+    for key in [
+        "log_z",
+        "log_z_se",
+        "laplace_log_z",
+        "is_log_z",
+        "grid_log_z",
+        "exact_log_z",
+        "modes",
+        "mean",
+        "sd",
+        "quantiles",
+        "rhat",
+        "ess",
+        "diagnostics",
+        "warnings",
+        "seed",
+        "gradient_evaluations",
+    ] {
+        assert!(v.get(key).is_some(), "missing `{key}`");
+    }
+    for key in ["location", "mass", "mass_se", "laplace_mass"] {
+        assert!(v["modes"][0].get(key).is_some(), "modes lack `{key}`");
+    }
+    // Spec settings are defaults: seed 5, 3 chains.
+    assert_eq!(v["seed"], 5);
+    assert_eq!(v["settings"]["chains"], 3);
+    // Exact identity: log Z = log(total weight) = log 3.
+    let (lz, se) = (
+        v["log_z"].as_f64().unwrap(),
+        v["log_z_se"].as_f64().unwrap(),
+    );
+    assert!((lz - 3f64.ln()).abs() < 0.05_f64.max(4.0 * se));
+    assert!((v["exact_log_z"].as_f64().unwrap() - 3f64.ln()).abs() < 1e-12);
+    assert!(v["grid_log_z"].is_number());
+    // Options override the spec.
+    let (code, out, _) = kiln(&[
+        "run", &a, "--json", "--seed", "9", "--chains", "2", "--method", "joint",
+    ]);
+    assert_eq!(code, 0);
+    let v: Value = serde_json::from_str(&out).unwrap();
+    assert_eq!(v["seed"], 9);
+    assert_eq!(v["settings"]["chains"], 2);
+    assert_eq!(v["settings"]["method"], "joint");
+}
+
+#[test]
+fn draws_csv_has_the_header_and_one_row_per_kept_draw() {
+    let d = dir("csv");
+    let a = write(&d, "a.json", MIXTURE_A);
+    let csv = d.join("draws.csv");
+    let (code, _, err) = kiln(&["run", &a, "--draws-csv", csv.to_str().unwrap()]);
+    assert_eq!(code, 0, "{err}");
+    let text = std::fs::read_to_string(&csv).unwrap();
+    let lines: Vec<&str> = text.split("\r\n").filter(|l| !l.is_empty()).collect();
+    assert_eq!(lines[0], "x1,x2,beta,weight,chain,iteration,mode");
+    assert_eq!(lines.len() - 1, 3 * 600);
+    // Resampled target draws: about two thirds in the heavier mode (exact mass 2/3).
+    let first_mode = lines[1..].iter().filter(|l| l.ends_with(",1")).count() as f64 / 1800.0;
+    assert!((first_mode - 2.0 / 3.0).abs() < 0.06, "{first_mode}");
+}
+
+#[test]
+fn compare_gives_the_log_bayes_factor() {
+    let d = dir("compare");
+    let a = write(&d, "a.json", MIXTURE_A);
+    let b = write(&d, "b.json", MIXTURE_B);
+    let (code, out, err) = kiln(&["compare", &a, &b, "--json"]);
+    assert_eq!(code, 0, "{err}");
+    let v: Value = serde_json::from_str(&out).unwrap();
+    // Exact identity: log(Z_A / Z_B) = log(3 / 0.5).
+    let (lbf, se) = (
+        v["log_bayes_factor"].as_f64().unwrap(),
+        v["log_bayes_factor_se"].as_f64().unwrap(),
+    );
+    assert!(
+        (lbf - 6f64.ln()).abs() < 0.05_f64.max(4.0 * se),
+        "{lbf} ± {se}"
+    );
+    let (code, text, _) = kiln(&["compare", &a, &b]);
+    assert_eq!(code, 0);
+    assert!(text.contains("log Bayes factor"));
+}
+
+#[test]
+fn bad_options_exit_with_code_two() {
+    let d = dir("bad");
+    let a = write(&d, "a.json", MIXTURE_A);
+    for (args, fragment) in [
+        (vec!["run", &a, "--chians", "2"], "did you mean `--chains`"),
+        (vec!["run", &a, "--chains", "0"], "0 chains requested"),
+        (
+            vec!["run", &a, "--method", "sideways"],
+            "unknown method `sideways`",
+        ),
+        (vec!["run", &a, "--draws", "many"], "expects a whole number"),
+        (vec!["run"], "takes exactly one spec file"),
+        (vec!["compare", &a], "takes exactly two spec files"),
+        (
+            vec!["run", &a, "--draws", "1000000", "--chains", "64"],
+            "values in memory",
+        ),
+    ] {
+        let (code, _, err) = kiln(&args);
+        assert_eq!(code, 2, "{args:?}: {err}");
+        assert!(err.contains(fragment), "{args:?}: {err}");
+        assert!(!err.contains("panicked"));
+    }
+}
