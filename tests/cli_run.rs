@@ -26,7 +26,7 @@ fn kiln(args: &[&str]) -> (i32, String, String) {
     )
 }
 
-fn write(d: &PathBuf, name: &str, text: &str) -> String {
+fn write(d: &std::path::Path, name: &str, text: &str) -> String {
     let p = d.join(name);
     std::fs::write(&p, text).unwrap();
     p.to_string_lossy().into_owned()
