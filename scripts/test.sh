@@ -11,6 +11,12 @@ if ! rustup target list --installed | grep -q '^wasm32-unknown-unknown$'; then
   rustup target add wasm32-unknown-unknown
 fi
 
+WASM_BINDGEN_VERSION=0.2.130   # must equal the wasm-bindgen version pinned in Cargo.toml
+if ! wasm-bindgen --version 2>/dev/null | grep -q " $WASM_BINDGEN_VERSION\$"; then
+  cargo install wasm-bindgen-cli --version "$WASM_BINDGEN_VERSION"
+fi
+command -v node >/dev/null || { echo "Node.js is needed for the WebAssembly tests"; exit 1; }
+
 step "format"
 cargo fmt --all -- --check
 
@@ -23,6 +29,12 @@ cargo test
 
 step "WebAssembly build"
 cargo build --lib --release --target wasm32-unknown-unknown
+
+step "native and WebAssembly give identical numbers and draws"
+mkdir -p target/determinism
+cargo run --quiet --bin kiln -- run demo-targets/default-two-modes.json --seed 3 --chains 2 --draws 300 --warmup 200 \
+  --json --draws-csv target/determinism/native.csv > target/determinism/native.json
+cargo test --target wasm32-unknown-unknown --test wasm_determinism
 
 step "demo targets pass kiln check"
 cargo build --bin kiln

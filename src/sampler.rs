@@ -651,7 +651,11 @@ impl Plan {
 
     /// Looks for regions the chains visit near β = 1 that no known mode covers, and
     /// optimises from them. Returns how many new modes were added.
-    fn discover_modes(&mut self, target: &Target, records: &[Record]) -> Result<usize, KilnError> {
+    pub(crate) fn discover_modes(
+        &mut self,
+        target: &Target,
+        records: &[Record],
+    ) -> Result<usize, KilnError> {
         let d = self.dim();
         let threshold = 30.0 + 4.0 * d as f64;
         let mut candidates: Vec<(f64, Vec<f64>)> = Vec::new();
@@ -837,4 +841,49 @@ pub fn warm_up(
         chains,
         warmup_records: all,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn draws_in_an_unexplored_region_become_a_new_mode() {
+        // A mixture whose second component (at (8, 8)) the optimiser is made to miss: keep only
+        // the first mode, then hand the plan draws near β = 1 sitting around (8, 8).
+        let spec = crate::parse_spec(
+            "t",
+            r#"{"mixture": [{"weight": 1, "mean": [0, 0], "sd": [1, 1]}, {"weight": 0.5, "mean": [8, 8], "sd": [0.7, 0.7]}]}"#,
+        )
+        .unwrap();
+        let target = Target::from_spec(&spec).unwrap();
+        let mut search =
+            crate::modes::find_modes(&target, crate::modes::SearchOptions::default_for(2, 1))
+                .unwrap();
+        search.modes.retain(|m| m.x[0] < 4.0);
+        assert_eq!(search.modes.len(), 1);
+        let laplace = Laplace::from_modes(&search.modes).unwrap();
+        let mut plan = Plan::new(&target, search.modes, laplace, SamplerOptions::new(1)).unwrap();
+        let mut rng = Stream::new(1, Purpose::Check, 0);
+        let mut rec = Record::default();
+        for _ in 0..50 {
+            rec.z.push(8.0 + 0.7 * rng.normal());
+            rec.z.push(8.0 + 0.7 * rng.normal());
+            rec.beta.push(0.9);
+            rec.delta.push(0.0);
+        }
+        let added = plan.discover_modes(&target, &[rec]).unwrap();
+        assert_eq!(added, 1);
+        let new = plan
+            .modes
+            .iter()
+            .find(|m| m.x[0] > 4.0)
+            .expect("the new mode is in the list");
+        assert!(
+            (new.x[0] - 8.0).abs() < 1e-4 && (new.x[1] - 8.0).abs() < 1e-4,
+            "{:?}",
+            new.x
+        );
+        assert_eq!(plan.laplace.base.components.len(), 2);
+    }
 }
