@@ -380,14 +380,18 @@ fn weighted_mean_se(values: &[f64], wn: &[f64], mean: f64, lens: &[usize]) -> (f
     (sqrt(var / e), e)
 }
 
-/// Everything estimated from the sampling records of a frozen plan.
-pub fn estimate(
-    target: &Target,
-    plan: &Plan,
-    records: &[Record],
-    is_draws: usize,
-) -> (Estimates, WeightedDraws) {
-    let d = target.dim();
+/// log Z, its standard error and the ESS of its series, with the log p(1|x) of every draw.
+pub struct LogZ {
+    pub log_z: f64,
+    pub se: f64,
+    pub ess: f64,
+    pub l1: Vec<f64>,
+    pub lse1: f64,
+}
+
+/// The log Z estimate of the method note (with the bias correction) and its SE, from records
+/// drawn under `plan`; NaN when the plan does not temper.
+pub fn log_z_estimate(plan: &Plan, records: &[Record]) -> LogZ {
     let lens: Vec<usize> = records.iter().map(|r| r.beta.len()).collect();
     let total: usize = lens.iter().sum();
     let mut s = vec![0.0; plan.bias.knots.len()];
@@ -410,7 +414,7 @@ pub fn estimate(
     let n = total as f64;
     let g0 = plan.bias.values[0];
     let g1 = plan.bias.values[plan.bias.values.len() - 1];
-    let (log_z, log_z_se, log_z_ess) = if tempered {
+    let (log_z, se, ess_z) = if tempered && total > 0 {
         let log_z = plan.base.log_zeta + g0 - g1 + lse1 - lse0;
         let zs: Vec<f64> = l1
             .iter()
@@ -429,6 +433,34 @@ pub fn estimate(
     } else {
         (f64::NAN, f64::NAN, f64::NAN)
     };
+    LogZ {
+        log_z,
+        se,
+        ess: ess_z,
+        l1,
+        lse1,
+    }
+}
+
+/// Everything estimated from the sampling records of a frozen plan.
+pub fn estimate(
+    target: &Target,
+    plan: &Plan,
+    records: &[Record],
+    is_draws: usize,
+) -> (Estimates, WeightedDraws) {
+    let d = target.dim();
+    let lens: Vec<usize> = records.iter().map(|r| r.beta.len()).collect();
+    let total: usize = lens.iter().sum();
+    let tempered = plan.is_tempered();
+    let LogZ {
+        log_z,
+        se: log_z_se,
+        ess: log_z_ess,
+        l1,
+        lse1,
+    } = log_z_estimate(plan, records);
+    let n = total as f64;
     // Normalised weights w̃_i = p1_i / mean(p1).
     let wn: Vec<f64> = l1.iter().map(|a| exp(a - lse1 + ln(n))).collect();
 

@@ -159,10 +159,7 @@ fn run(args: &[String]) -> Result<String, KilnError> {
             let spec = read_spec(&files[0])?;
             let result = pipeline::run(&spec, &opts.overrides)?;
             if let Some(path) = &opts.draws_csv {
-                let n = result.outcome.settings.draws * result.outcome.settings.chains;
-                let picks = kiln::estimates::resample(&result.draws.weight, n, result.outcome.seed);
-                let csv = report::draws_csv(&result.names, &result.draws, &picks);
-                std::fs::write(path, csv)
+                std::fs::write(path, result.draws_csv())
                     .map_err(|e| KilnError::usage(format!("cannot write `{path}`: {e}")))?;
             }
             if opts.json {

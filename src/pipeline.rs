@@ -156,13 +156,7 @@ pub fn check(spec: &Spec) -> Result<CheckOutcome, KilnError> {
     let work = p.target.evaluator_work();
     let grid = grid_log_z(&p.target, &scales, work, GRID_WORK);
     if let Some(axis) = grid.as_ref().and_then(|g| g.growing_along) {
-        let name = &p.target.names[axis];
-        return Err(KilnError::density(format!(
-            "the density does not seem to be normalisable along `{name}`"
-        ))
-        .with_hint(format!(
-            "its tails fall off too slowly: the integral keeps growing as the range of `{name}` widens; bound `{name}` or add a term that makes the energy rise faster, such as a prior"
-        )));
+        return Err(heavy_tail_error(&p.target.names[axis]));
     }
     let mut warnings = p.search.notes.clone();
     if let Some(g) = &grid {
@@ -205,7 +199,7 @@ use crate::estimates::{
     cross_checks, estimate, verdict, warnings, CrossCheck, Diagnostics, Estimates, ModeEstimate,
     WeightedDraws,
 };
-use crate::sampler::{warm_up, Integrator, Method, RefitPolicy, SamplerOptions};
+use crate::sampler::{Integrator, Method, RefitPolicy, SamplerOptions, Stepper};
 
 /// Defaults of `kiln run` (chosen by measurement; see DEVELOPERS.md).
 pub const DEFAULT_CHAINS: usize = 4;
@@ -354,21 +348,14 @@ pub fn sampler_options(r: &RunSettings) -> SamplerOptions {
     o
 }
 
-/// `kiln run`: modes, warm-up, sampling, estimates, cross-checks.
+/// `kiln run`: modes, warm-up, sampling, estimates, cross-checks. The same steps as the page.
 pub fn run(spec: &Spec, overrides: &Overrides) -> Result<RunResult, KilnError> {
-    let settings = run_settings(spec, overrides)?;
-    let mut spec_seeded = spec.clone();
-    spec_seeded.settings.seed = Some(settings.seed);
-    let p = prepare(&spec_seeded)?;
-    let scales = mode_scales(&p);
-    let grid = grid_log_z(&p.target, &scales, p.target.evaluator_work(), GRID_WORK);
-    if let Some(axis) = grid.as_ref().and_then(|g| g.growing_along) {
-        let name = &p.target.names[axis];
-        return Err(KilnError::density(format!("the density does not seem to be normalisable along `{name}`"))
-            .with_hint(format!("its tails fall off too slowly: the integral keeps growing as the range of `{name}` widens; bound `{name}` or add a term that makes the energy rise faster, such as a prior")));
+    let mut session = Session::new(spec, overrides, None)?;
+    while session.step().is_some() {
+        let records = session.run_step();
+        session.absorb(records)?;
     }
-    let opts = sampler_options(&settings);
-    run_prepared(spec, &p, grid, opts, settings)
+    session.finish()
 }
 
 /// The sampling part of a run, for a prepared target (also used by benchmarks and tests).
@@ -379,16 +366,33 @@ pub fn run_prepared(
     opts: SamplerOptions,
     settings: RunSettings,
 ) -> Result<RunResult, KilnError> {
+    let mut stepper = Stepper::new(
+        &p.target,
+        p.search.modes.clone(),
+        p.laplace.clone(),
+        opts,
+        None,
+    )?;
+    stepper.run_to_end()?;
+    finish_run(spec, p, grid.as_ref(), &stepper, settings)
+}
+
+/// Everything a run reports, from a stepper whose steps are all done.
+pub fn finish_run(
+    spec: &Spec,
+    p: &Prepared,
+    grid: Option<&GridResult>,
+    stepper: &Stepper,
+    settings: RunSettings,
+) -> Result<RunResult, KilnError> {
     let laplace_log_z = p.laplace.log_zeta;
-    let mut warm = warm_up(&p.target, p.search.modes.clone(), p.laplace.clone(), opts)?;
-    let records =
-        crate::sampler::run_chains(&mut warm.chains, &warm.plan, warm.plan.options.draws, false);
-    let (mut est, draws) = estimate(&p.target, &warm.plan, &records, IS_DRAWS);
-    est.diagnostics.step_sizes = warm.chains.iter().map(|c| c.step_size()).collect();
+    let plan = &stepper.plan;
+    let records = &stepper.kept;
+    let (mut est, draws) = estimate(&p.target, plan, records, IS_DRAWS);
+    est.diagnostics.step_sizes = stepper.step_sizes();
     let exact = p.target.mixture_truth();
     let exact_log_z = exact.as_ref().map(|t| t.log_z);
     let grid_pair = grid
-        .as_ref()
         .filter(|g| g.log_z.is_finite())
         .map(|g| (g.log_z, g.change));
     let checks = cross_checks(
@@ -401,27 +405,21 @@ pub fn run_prepared(
     );
     let v = verdict(&checks, est.log_z, est.log_z_se);
     let names = p.target.names.clone();
-    let iterations = warm.plan.options.draws * warm.plan.options.chains;
-    let mut warns = warnings(&est, &checks, &names, warm.plan.is_tempered(), iterations);
-
-    if let Some(g) = &grid {
+    let iterations = plan.options.draws * plan.options.chains;
+    let mut warns = warnings(&est, &checks, &names, plan.is_tempered(), iterations);
+    if let Some(g) = grid {
         warns.extend(g.warnings.iter().cloned());
     }
     let mut notes = p.search.notes.clone();
-    notes.extend(warm.plan.notes.iter().cloned());
-    if warm.plan.new_modes > 0 {
+    notes.extend(plan.notes.iter().cloned());
+    if plan.new_modes > 0 {
         notes.push(format!(
             "the chains found {} mode(s) the optimiser had missed",
-            warm.plan.new_modes
+            plan.new_modes
         ));
     }
-    let gradient_evaluations = p.search.evaluations
-        + warm
-            .chains
-            .iter()
-            .map(|c| c.gradient_evaluations())
-            .sum::<u64>()
-        + warm.plan.discovery_evaluations;
+    let gradient_evaluations =
+        p.search.evaluations + stepper.chain_evaluations() + plan.discovery_evaluations;
     // Exact masses, matched to modes by nearest component mean.
     let exact_masses = exact.map(|t| {
         est.modes
@@ -525,4 +523,244 @@ pub fn compare(a: RunOutcome, b: RunOutcome) -> CompareOutcome {
         b,
         warnings,
     }
+}
+
+/// A run that advances one step at a time, for the page: each worker holds one, owning some
+/// chains, and all exchange their records after every step (see `sampler::Stepper`).
+pub struct Session {
+    spec: Spec,
+    prepared: Prepared,
+    grid: Option<GridResult>,
+    settings: RunSettings,
+    stepper: crate::sampler::Stepper,
+    running: Vec<RunningLogZ>,
+}
+
+/// log Z after some of the kept draws.
+#[derive(Clone, Debug, Serialize)]
+pub struct RunningLogZ {
+    pub draws: usize,
+    pub log_z: f64,
+    pub log_z_se: f64,
+}
+
+/// Where a session is.
+#[derive(Clone, Debug, Serialize)]
+pub struct Progress {
+    /// "warmup", "sampling" or "done".
+    pub step_kind: String,
+    pub step_index: usize,
+    pub step_count: usize,
+    /// Kept draws so far, over all chains.
+    pub draws_done: usize,
+    pub draws_total: usize,
+    pub running: Vec<RunningLogZ>,
+    /// β of the kept draws so far, per chain, thinned to at most 2000 values each.
+    pub beta_trace: Vec<Vec<f64>>,
+}
+
+impl Session {
+    /// Prepares the run (mode search, Laplace approximation, grid check) for the given chains.
+    pub fn new(
+        spec: &Spec,
+        overrides: &Overrides,
+        owned: Option<&[usize]>,
+    ) -> Result<Session, KilnError> {
+        let settings = run_settings(spec, overrides)?;
+        let mut seeded = spec.clone();
+        seeded.settings.seed = Some(settings.seed);
+        let prepared = prepare(&seeded)?;
+        let scales = mode_scales(&prepared);
+        let grid = grid_log_z(
+            &prepared.target,
+            &scales,
+            prepared.target.evaluator_work(),
+            GRID_WORK,
+        );
+        if let Some(axis) = grid.as_ref().and_then(|g| g.growing_along) {
+            return Err(heavy_tail_error(&prepared.target.names[axis]));
+        }
+        let stepper = crate::sampler::Stepper::new(
+            &prepared.target,
+            prepared.search.modes.clone(),
+            prepared.laplace.clone(),
+            sampler_options(&settings),
+            owned,
+        )?;
+        Ok(Session {
+            spec: spec.clone(),
+            prepared,
+            grid,
+            settings,
+            stepper,
+            running: Vec::new(),
+        })
+    }
+
+    pub fn settings(&self) -> &RunSettings {
+        &self.settings
+    }
+
+    pub fn step(&self) -> Option<crate::sampler::Step> {
+        self.stepper.step()
+    }
+
+    pub fn step_index(&self) -> usize {
+        self.stepper.step_index()
+    }
+
+    pub fn step_count(&self) -> usize {
+        self.stepper.step_count()
+    }
+
+    /// Runs this session's chains through the current step.
+    pub fn run_step(&mut self) -> Vec<crate::sampler::Record> {
+        self.stepper.run_step()
+    }
+
+    /// Takes every chain's records for the current step and advances.
+    pub fn absorb(&mut self, records: Vec<crate::sampler::Record>) -> Result<(), KilnError> {
+        let sampling = matches!(
+            self.stepper.step(),
+            Some(crate::sampler::Step::Sample { .. })
+        );
+        self.stepper.absorb(records)?;
+        if sampling {
+            let e = crate::estimates::log_z_estimate(&self.stepper.plan, &self.stepper.kept);
+            let draws = self.stepper.kept.iter().map(|r| r.beta.len()).sum();
+            self.running.push(RunningLogZ {
+                draws,
+                log_z: e.log_z,
+                log_z_se: e.se,
+            });
+        }
+        Ok(())
+    }
+
+    pub fn progress(&self) -> Progress {
+        let step_kind = match self.stepper.step() {
+            Some(crate::sampler::Step::Warmup { .. }) => "warmup",
+            Some(crate::sampler::Step::Sample { .. }) => "sampling",
+            None => "done",
+        };
+        let beta_trace = self
+            .stepper
+            .kept
+            .iter()
+            .map(|r| {
+                let stride = r.beta.len().div_ceil(2000).max(1);
+                r.beta.iter().step_by(stride).copied().collect()
+            })
+            .collect();
+        Progress {
+            step_kind: step_kind.to_string(),
+            step_index: self.stepper.step_index(),
+            step_count: self.stepper.step_count(),
+            draws_done: self.stepper.kept.iter().map(|r| r.beta.len()).sum(),
+            draws_total: self.settings.draws * self.settings.chains,
+            running: self.running.clone(),
+            beta_trace,
+        }
+    }
+
+    /// The full report, once every step is done.
+    pub fn finish(&self) -> Result<RunResult, KilnError> {
+        if self.stepper.step().is_some() {
+            return Err(KilnError::usage("the run has not finished yet")
+                .with_hint("run and absorb every step first"));
+        }
+        finish_run(
+            &self.spec,
+            &self.prepared,
+            self.grid.as_ref(),
+            &self.stepper,
+            self.settings.clone(),
+        )
+    }
+}
+
+fn heavy_tail_error(name: &str) -> KilnError {
+    KilnError::density(format!("the density does not seem to be normalisable along `{name}`")).with_hint(format!(
+        "its tails fall off too slowly: the integral keeps growing as the range of `{name}` widens; bound `{name}` or add a term that makes the energy rise faster, such as a prior"
+    ))
+}
+
+/// Draws for plots: resampled target draws (at most `max`), per unknown, with their modes.
+#[derive(Clone, Debug, Serialize)]
+pub struct PlotDraws {
+    pub names: Vec<String>,
+    /// x[j][i]: unknown j of draw i.
+    pub x: Vec<Vec<f64>>,
+    /// 1-based mode of each draw.
+    pub mode: Vec<usize>,
+    pub beta: Vec<f64>,
+}
+
+impl RunResult {
+    /// Resampled, unweighted target draws as in `kiln run --draws-csv`.
+    pub fn resampled(&self) -> Vec<usize> {
+        let n = self.outcome.settings.draws * self.outcome.settings.chains;
+        crate::estimates::resample(&self.draws.weight, n, self.outcome.seed)
+    }
+
+    pub fn draws_csv(&self) -> String {
+        crate::report::draws_csv(&self.names, &self.draws, &self.resampled())
+    }
+
+    pub fn plot_draws(&self, max: usize) -> PlotDraws {
+        let picks = self.resampled();
+        let stride = picks.len().div_ceil(max.max(1)).max(1);
+        let d = self.names.len();
+        let chosen: Vec<usize> = picks.iter().step_by(stride).copied().collect();
+        PlotDraws {
+            names: self.names.clone(),
+            x: (0..d)
+                .map(|j| chosen.iter().map(|&i| self.draws.x[i * d + j]).collect())
+                .collect(),
+            mode: chosen.iter().map(|&i| self.draws.mode[i] + 1).collect(),
+            beta: chosen.iter().map(|&i| self.draws.beta[i]).collect(),
+        }
+    }
+}
+
+/// The user's log density on a grid of cell centres (row-major, y outer), for one or two
+/// unknowns: `ix`, `iy` pick the unknowns (iy ignored for one unknown).
+#[allow(clippy::too_many_arguments)]
+pub fn log_density_grid(
+    spec: &Spec,
+    ix: usize,
+    iy: usize,
+    xr: (f64, f64),
+    yr: (f64, f64),
+    nx: usize,
+    ny: usize,
+) -> Result<Vec<f64>, KilnError> {
+    let target = crate::target::Target::from_spec(spec)?;
+    let d = target.dim();
+    if d > 2 {
+        return Err(KilnError::usage("a density map needs one or two unknowns")
+            .with_hint("for more unknowns, plot the draws of a pair"));
+    }
+    if ix >= d || (d == 2 && (iy >= d || iy == ix)) {
+        return Err(KilnError::usage(
+            "choose two different unknowns for the density map",
+        ));
+    }
+    let (nx, ny) = (
+        nx.clamp(1, 1024),
+        if d == 1 { 1 } else { ny.clamp(1, 1024) },
+    );
+    let mut ev = target.evaluator();
+    let mut out = Vec::with_capacity(nx * ny);
+    let mut x = vec![0.0; d];
+    for j in 0..ny {
+        for i in 0..nx {
+            x[ix] = xr.0 + (i as f64 + 0.5) * (xr.1 - xr.0) / nx as f64;
+            if d == 2 {
+                x[iy] = yr.0 + (j as f64 + 0.5) * (yr.1 - yr.0) / ny as f64;
+            }
+            out.push(-ev.user_energy(&x));
+        }
+    }
+    Ok(out)
 }

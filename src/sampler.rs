@@ -138,8 +138,14 @@ pub struct Plan {
 }
 
 /// One chain's record of a phase.
-#[derive(Clone, Debug, Default)]
+#[derive(Clone, Debug, Default, serde::Serialize, serde::Deserialize)]
 pub struct Record {
+    /// Which chain (0-based).
+    pub chain: usize,
+    /// The chain's energy evaluations so far (a running total, not per phase).
+    pub evaluations: u64,
+    /// The step size the chain used in this phase.
+    pub eps: f64,
     /// Unconstrained positions, `dim` per iteration.
     pub z: Vec<f64>,
     pub beta: Vec<f64>,
@@ -404,6 +410,7 @@ impl Chain {
         let joint = Self::joint(plan);
         let mut rec = Record {
             iterations,
+            chain: self.index,
             ..Record::default()
         };
         rec.z.reserve(iterations * d);
@@ -479,6 +486,8 @@ impl Chain {
         if iterations > 0 {
             rec.accept /= iterations as f64;
         }
+        rec.evaluations = self.gradient_evaluations();
+        rec.eps = self.eps;
         rec
     }
 
@@ -610,13 +619,6 @@ pub fn log_z_series_variance(bias: &Bias, records: &[Record]) -> f64 {
 /// Learning rate of the bias update after warm-up window `w` (counted from the last reset).
 fn bias_step(w: usize) -> f64 {
     [1.0, 1.0, 0.8, 0.6, 0.5, 0.4, 0.3][w.min(6)]
-}
-
-/// Everything warm-up produced: the frozen plan and the chains ready to sample.
-pub struct Warm {
-    pub plan: Plan,
-    pub chains: Vec<Chain>,
-    pub warmup_records: Vec<Vec<Record>>,
 }
 
 impl Plan {
@@ -764,83 +766,245 @@ impl Plan {
     }
 }
 
-/// Warm-up: adapts, learns the bias, may refit the base and add modes; then freezes the plan.
-pub fn warm_up(
-    target: &Target,
-    modes: Vec<Mode>,
-    laplace: Laplace,
-    options: SamplerOptions,
-) -> Result<Warm, KilnError> {
-    let mut plan = Plan::new(target, modes, laplace, options)?;
-    let mut chains: Vec<Chain> = (0..plan.options.chains)
-        .map(|c| Chain::new(c, target, &plan))
-        .collect::<Result<_, _>>()?;
-    for c in chains.iter_mut() {
-        c.restart_adaptation(&plan);
+/// One step of a run: a warm-up window (followed by learning) or a chunk of kept draws.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize)]
+pub enum Step {
+    Warmup { window: usize, iterations: usize },
+    Sample { chunk: usize, iterations: usize },
+}
+
+/// How many chunks the kept draws are made in (progress is reported after each).
+pub const SAMPLING_CHUNKS: usize = 10;
+
+/// A run as a fixed sequence of steps, for all chains or for a subset of them.
+///
+/// Each step, the owned chains run (`run_step`) and the records of *all* chains are then
+/// handed to `absorb`, which applies what warm-up learns (bias, mode discovery, refit, mass of
+/// u) identically wherever it runs. The command line owns every chain; a page worker owns
+/// some and exchanges records with the others, and gets the same numbers.
+pub struct Stepper {
+    pub plan: Plan,
+    target: Target,
+    /// The owned chains, in increasing chain order.
+    chains: Vec<Chain>,
+    steps: Vec<Step>,
+    at: usize,
+    history: Vec<(Bias, Vec<Record>)>,
+    since_reset: usize,
+    merge_rng: Stream,
+    /// Kept draws of every chain, concatenated over sampling chunks (index = chain).
+    pub kept: Vec<Record>,
+}
+
+fn merge_records(into: &mut Record, r: &Record) {
+    let n_old = into.iterations as f64;
+    let n_new = r.iterations as f64;
+    into.z.extend_from_slice(&r.z);
+    into.beta.extend_from_slice(&r.beta);
+    into.delta.extend_from_slice(&r.delta);
+    if n_old + n_new > 0.0 {
+        into.accept = (into.accept * n_old + r.accept * n_new) / (n_old + n_new);
     }
-    let mut merge_rng = Stream::new(plan.options.seed, Purpose::Resample, 1 << 20);
-    let mut all = Vec::new();
-    let mut since_reset = 0;
-    // Windows drawn since the base last changed, with the bias each was drawn under.
-    let mut history: Vec<(Bias, Vec<Record>)> = Vec::new();
-    for (w, &len) in window_lengths(plan.options.warmup).iter().enumerate() {
-        let records = run_chains(&mut chains, &plan, len, true);
-        if plan.is_tempered() && len > 0 {
-            let used = plan.bias.clone();
-            if plan.options.learn_bias {
-                plan.update_bias(&records, bias_step(since_reset));
-                since_reset += 1;
+    into.divergences += r.divergences;
+    into.leapfrogs += r.leapfrogs;
+    into.max_depth_hits += r.max_depth_hits;
+    into.independence_accepted += r.independence_accepted;
+    into.iterations += r.iterations;
+    into.chain = r.chain;
+    into.evaluations = r.evaluations;
+    into.eps = r.eps;
+}
+
+impl Stepper {
+    /// `owned`: the chain indices this stepper runs (`None`: all of them).
+    pub fn new(
+        target: &Target,
+        modes: Vec<Mode>,
+        laplace: Laplace,
+        options: SamplerOptions,
+        owned: Option<&[usize]>,
+    ) -> Result<Stepper, KilnError> {
+        let plan = Plan::new(target, modes, laplace, options)?;
+        let all: Vec<usize> = (0..plan.options.chains).collect();
+        let mut owned: Vec<usize> = owned.map(|o| o.to_vec()).unwrap_or(all);
+        owned.sort_unstable();
+        owned.dedup();
+        if let Some(bad) = owned.iter().find(|&&c| c >= plan.options.chains) {
+            return Err(KilnError::usage(format!(
+                "chain {bad} does not exist: the run has {} chains",
+                plan.options.chains
+            )));
+        }
+        let mut chains: Vec<Chain> = owned
+            .iter()
+            .map(|&c| Chain::new(c, target, &plan))
+            .collect::<Result<_, _>>()?;
+        for c in chains.iter_mut() {
+            c.restart_adaptation(&plan);
+        }
+        let mut steps: Vec<Step> = window_lengths(plan.options.warmup)
+            .into_iter()
+            .enumerate()
+            .map(|(window, iterations)| Step::Warmup { window, iterations })
+            .collect();
+        let draws = plan.options.draws;
+        let chunks = SAMPLING_CHUNKS.min(draws.max(1));
+        for chunk in 0..chunks {
+            let iterations = draws / chunks + usize::from(chunk < draws % chunks);
+            steps.push(Step::Sample { chunk, iterations });
+        }
+        let merge_rng = Stream::new(plan.options.seed, Purpose::Resample, 1 << 20);
+        let kept = (0..plan.options.chains)
+            .map(|c| Record {
+                chain: c,
+                ..Record::default()
+            })
+            .collect();
+        Ok(Stepper {
+            plan,
+            target: target.clone(),
+            chains,
+            steps,
+            at: 0,
+            history: Vec::new(),
+            since_reset: 0,
+            merge_rng,
+            kept,
+        })
+    }
+
+    /// The current step, or `None` when the run is done.
+    pub fn step(&self) -> Option<Step> {
+        self.steps.get(self.at).copied()
+    }
+
+    pub fn step_index(&self) -> usize {
+        self.at
+    }
+
+    pub fn step_count(&self) -> usize {
+        self.steps.len()
+    }
+
+    /// Runs the owned chains through the current step.
+    pub fn run_step(&mut self) -> Vec<Record> {
+        match self.step() {
+            Some(Step::Warmup { iterations, .. }) => {
+                run_chains(&mut self.chains, &self.plan, iterations, true)
             }
-            history.push((used.clone(), records.clone()));
-            if REFIT_AFTER.contains(&w) {
-                let found = plan.discover_modes(target, &records)?;
-                plan.new_modes += found;
-                let spread = log_z_series_variance(&used, &records);
-                let poor = plan.bias_span() > REFIT_SPAN || spread > REFIT_VARIANCE;
-                let refit = match plan.options.refit {
-                    RefitPolicy::Always => w == REFIT_AFTER[0],
-                    RefitPolicy::Never => false,
-                    RefitPolicy::Auto => poor || found > 0,
-                };
-                if refit && plan.refit_base(target, &history, &mut merge_rng)? {
-                    for c in chains.iter_mut() {
-                        c.set_base(&plan.base);
-                        c.restart_adaptation(&plan);
+            Some(Step::Sample { iterations, .. }) => {
+                run_chains(&mut self.chains, &self.plan, iterations, false)
+            }
+            None => Vec::new(),
+        }
+    }
+
+    /// Takes the records of every chain for the current step and moves to the next.
+    pub fn absorb(&mut self, mut records: Vec<Record>) -> Result<(), KilnError> {
+        let Some(step) = self.step() else {
+            return Ok(());
+        };
+        records.sort_by_key(|r| r.chain);
+        let chains: Vec<usize> = records.iter().map(|r| r.chain).collect();
+        let expected: Vec<usize> = (0..self.plan.options.chains).collect();
+        if chains != expected {
+            return Err(KilnError::usage(format!(
+                "step {} needs the records of chains {expected:?}, got {chains:?}",
+                self.at
+            )));
+        }
+        match step {
+            Step::Warmup { window, iterations } => {
+                if self.plan.is_tempered() && iterations > 0 {
+                    self.learn(window, &records)?;
+                }
+                // Leaving warm-up: every chain keeps its averaged step size from now on.
+                if !matches!(self.steps.get(self.at + 1), Some(Step::Warmup { .. })) {
+                    for c in self.chains.iter_mut() {
+                        c.eps = c.adapt.final_eps();
                     }
-                    since_reset = 0;
-                    history.clear();
-                    plan.notes.push(format!(
-                        "the base was refitted to the draws of warm-up windows 1–{} ({} Student-t components){}",
-                        w + 1,
-                        plan.base.q.components.len(),
-                        if found > 0 { format!(", after the chains found {found} new mode(s)") } else { String::new() }
-                    ));
                 }
             }
-            if Chain::joint(&plan) {
-                let us: Vec<f64> = records
-                    .iter()
-                    .flat_map(|r| r.beta.iter().map(|b| ln(*b) - ln(1.0 - b)))
-                    .filter(|u| u.is_finite())
-                    .collect();
-                if us.len() > 10 {
-                    let m = us.iter().sum::<f64>() / us.len() as f64;
-                    let v =
-                        us.iter().map(|u| (u - m) * (u - m)).sum::<f64>() / (us.len() - 1) as f64;
-                    plan.u_scale = sqrt(v).clamp(0.5, 5.0);
+            Step::Sample { .. } => {
+                for r in &records {
+                    merge_records(&mut self.kept[r.chain], r);
                 }
             }
         }
-        all.push(records);
+        self.at += 1;
+        Ok(())
     }
-    for c in chains.iter_mut() {
-        c.eps = c.adapt.final_eps();
+
+    /// What warm-up learns from one window of every chain.
+    fn learn(&mut self, w: usize, records: &[Record]) -> Result<(), KilnError> {
+        let target = self.target.clone();
+        let plan = &mut self.plan;
+        let used = plan.bias.clone();
+        if plan.options.learn_bias {
+            plan.update_bias(records, bias_step(self.since_reset));
+            self.since_reset += 1;
+        }
+        self.history.push((used.clone(), records.to_vec()));
+        if REFIT_AFTER.contains(&w) {
+            let found = plan.discover_modes(&target, records)?;
+            plan.new_modes += found;
+            let spread = log_z_series_variance(&used, records);
+            let poor = plan.bias_span() > REFIT_SPAN || spread > REFIT_VARIANCE;
+            let refit = match plan.options.refit {
+                RefitPolicy::Always => w == REFIT_AFTER[0],
+                RefitPolicy::Never => false,
+                RefitPolicy::Auto => poor || found > 0,
+            };
+            let first_window = w + 1 - self.history.len();
+            if refit && plan.refit_base(&target, &self.history, &mut self.merge_rng)? {
+                for c in self.chains.iter_mut() {
+                    c.set_base(&plan.base);
+                    c.restart_adaptation(plan);
+                }
+                self.since_reset = 0;
+                self.history.clear();
+                plan.notes.push(format!(
+                    "the base was refitted to the draws of warm-up windows {}–{} ({} Student-t components){}",
+                    first_window + 1,
+                    w + 1,
+                    plan.base.q.components.len(),
+                    if found > 0 { format!(", after the chains found {found} new mode(s)") } else { String::new() }
+                ));
+            }
+        }
+        if Chain::joint(plan) {
+            let us: Vec<f64> = records
+                .iter()
+                .flat_map(|r| r.beta.iter().map(|b| ln(*b) - ln(1.0 - b)))
+                .filter(|u| u.is_finite())
+                .collect();
+            if us.len() > 10 {
+                let m = us.iter().sum::<f64>() / us.len() as f64;
+                let v = us.iter().map(|u| (u - m) * (u - m)).sum::<f64>() / (us.len() - 1) as f64;
+                plan.u_scale = sqrt(v).clamp(0.5, 5.0);
+            }
+        }
+        Ok(())
     }
-    Ok(Warm {
-        plan,
-        chains,
-        warmup_records: all,
-    })
+
+    /// Energy evaluations of every chain (read from the records, so every worker agrees).
+    pub fn chain_evaluations(&self) -> u64 {
+        self.kept.iter().map(|r| r.evaluations).sum()
+    }
+
+    /// The step size of every chain in the kept draws.
+    pub fn step_sizes(&self) -> Vec<f64> {
+        self.kept.iter().map(|r| r.eps).collect()
+    }
+
+    /// Runs every remaining step with all chains owned.
+    pub fn run_to_end(&mut self) -> Result<(), KilnError> {
+        while self.step().is_some() {
+            let r = self.run_step();
+            self.absorb(r)?;
+        }
+        Ok(())
+    }
 }
 
 #[cfg(test)]

@@ -1,12 +1,14 @@
 //! The WebAssembly layer: translates between JavaScript values and the library. No statistics.
 //!
-//! Owns: the exported functions the page's workers call, and the shape of errors as they cross
-//! into JavaScript (`{kind, message, location: {source, line, column, line_text, width}, hint,
-//! rendered}`), never a panic.
+//! Owns: the exported functions and the `RunSession` class the page's workers call (see
+//! www/ENGINE-API.md), and the shape of errors as they cross into JavaScript
+//! (`{kind, message, location: {source, line, column, line_text, width}, hint, rendered}`),
+//! never a panic: a panic hook turns any remaining panic into a console error the page shows.
 //! Must not: compute anything the native command line would not compute the same way.
 
 use crate::error::KilnError;
-use crate::pipeline;
+use crate::pipeline::{self, Overrides, Session};
+use crate::sampler::{Record, Step};
 use serde::Serialize;
 use wasm_bindgen::prelude::*;
 
@@ -22,25 +24,214 @@ fn to_js_error(e: &KilnError) -> JsValue {
         error: e,
         rendered: e.render(),
     };
-    serde_wasm_bindgen::to_value(&v).unwrap_or_else(|_| JsValue::from_str(&e.render()))
+    let ser = serde_wasm_bindgen::Serializer::json_compatible();
+    v.serialize(&ser)
+        .unwrap_or_else(|_| JsValue::from_str(&e.render()))
 }
 
 fn to_js<T: Serialize>(v: &T) -> Result<JsValue, JsValue> {
     let ser = serde_wasm_bindgen::Serializer::json_compatible();
-    v.serialize(&ser)
-        .map_err(|e| JsValue::from_str(&format!("could not pass the result to the page: {e}")))
+    v.serialize(&ser).map_err(|e| {
+        to_js_error(&KilnError::usage(format!(
+            "could not pass the result to the page: {e}"
+        )))
+    })
+}
+
+fn spec_of(json: &str) -> Result<crate::Spec, JsValue> {
+    crate::parse_spec("spec", json).map_err(|e| to_js_error(&e))
+}
+
+#[derive(serde::Deserialize, Default)]
+#[serde(deny_unknown_fields)]
+struct JsOverrides {
+    seed: Option<u64>,
+    chains: Option<usize>,
+    draws: Option<usize>,
+    warmup: Option<usize>,
+    method: Option<String>,
+    integrator: Option<String>,
+}
+
+fn overrides_of(json: &str) -> Result<Overrides, JsValue> {
+    let o: JsOverrides = if json.trim().is_empty() {
+        JsOverrides::default()
+    } else {
+        serde_json::from_str(json).map_err(|e| {
+            to_js_error(
+                &KilnError::usage(format!("bad run settings: {e}"))
+                    .with_hint("seed, chains, draws, warmup, method, integrator"),
+            )
+        })?
+    };
+    Ok(Overrides {
+        seed: o.seed,
+        chains: o.chains,
+        draws: o.draws,
+        warmup: o.warmup,
+        method: o.method,
+        integrator: o.integrator,
+    })
+}
+
+/// Installs the panic hook (called once when the module starts).
+#[wasm_bindgen(start)]
+pub fn start() {
+    std::panic::set_hook(Box::new(|info| {
+        let msg = format!("Kiln stopped on an internal error (please report it): {info}");
+        web_log(&msg);
+    }));
+}
+
+#[wasm_bindgen]
+extern "C" {
+    #[wasm_bindgen(js_namespace = console, js_name = error)]
+    fn web_log(s: &str);
 }
 
 /// `kiln check` on a spec given as JSON text.
 #[wasm_bindgen]
 pub fn check_spec(spec_json: &str) -> Result<JsValue, JsValue> {
-    let spec = crate::parse_spec("spec", spec_json).map_err(|e| to_js_error(&e))?;
+    let spec = spec_of(spec_json)?;
     let outcome = pipeline::check(&spec).map_err(|e| to_js_error(&e))?;
     to_js(&outcome)
+}
+
+/// The user's log density on a grid (one or two unknowns), row-major with y outer.
+#[wasm_bindgen]
+#[allow(clippy::too_many_arguments)]
+pub fn log_density_grid(
+    spec_json: &str,
+    ix: usize,
+    iy: usize,
+    xmin: f64,
+    xmax: f64,
+    ymin: f64,
+    ymax: f64,
+    nx: usize,
+    ny: usize,
+) -> Result<Vec<f64>, JsValue> {
+    let spec = spec_of(spec_json)?;
+    pipeline::log_density_grid(&spec, ix, iy, (xmin, xmax), (ymin, ymax), nx, ny)
+        .map_err(|e| to_js_error(&e))
 }
 
 /// The library's version.
 #[wasm_bindgen]
 pub fn version() -> String {
     env!("CARGO_PKG_VERSION").to_string()
+}
+
+/// One worker's part of a run (www/ENGINE-API.md).
+#[wasm_bindgen]
+pub struct RunSession {
+    session: Session,
+    result: Option<pipeline::RunResult>,
+}
+
+#[wasm_bindgen]
+impl RunSession {
+    #[wasm_bindgen(constructor)]
+    pub fn new(
+        spec_json: &str,
+        overrides_json: &str,
+        owned_chains: Vec<u32>,
+    ) -> Result<RunSession, JsValue> {
+        let spec = spec_of(spec_json)?;
+        let o = overrides_of(overrides_json)?;
+        let owned: Vec<usize> = owned_chains.iter().map(|c| *c as usize).collect();
+        let session = Session::new(&spec, &o, Some(&owned)).map_err(|e| to_js_error(&e))?;
+        Ok(RunSession {
+            session,
+            result: None,
+        })
+    }
+
+    pub fn chains(&self) -> usize {
+        self.session.settings().chains
+    }
+
+    pub fn settings(&self) -> Result<JsValue, JsValue> {
+        to_js(self.session.settings())
+    }
+
+    pub fn step_count(&self) -> usize {
+        self.session.step_count()
+    }
+
+    pub fn step_index(&self) -> usize {
+        self.session.step_index()
+    }
+
+    pub fn step_kind(&self) -> String {
+        match self.session.step() {
+            Some(Step::Warmup { .. }) => "warmup".into(),
+            Some(Step::Sample { .. }) => "sampling".into(),
+            None => "done".into(),
+        }
+    }
+
+    pub fn step_iterations(&self) -> usize {
+        match self.session.step() {
+            Some(Step::Warmup { iterations, .. }) | Some(Step::Sample { iterations, .. }) => {
+                iterations
+            }
+            None => 0,
+        }
+    }
+
+    /// Runs this worker's chains through the current step; returns their records as JSON.
+    pub fn run_step(&mut self) -> Result<String, JsValue> {
+        let records = self.session.run_step();
+        serde_json::to_string(&records)
+            .map_err(|e| to_js_error(&KilnError::usage(format!("could not encode records: {e}"))))
+    }
+
+    /// Takes `JSON.stringify([...])` of every worker's `run_step()` result and advances.
+    pub fn absorb(&mut self, all_records_json: &str) -> Result<(), JsValue> {
+        let parts: Vec<String> = serde_json::from_str(all_records_json).map_err(|e| {
+            to_js_error(&KilnError::usage(format!(
+                "could not read the records: {e}"
+            )))
+        })?;
+        let mut records: Vec<Record> = Vec::new();
+        for p in parts {
+            let mut r: Vec<Record> = serde_json::from_str(&p).map_err(|e| {
+                to_js_error(&KilnError::usage(format!(
+                    "could not read the records: {e}"
+                )))
+            })?;
+            records.append(&mut r);
+        }
+        self.session.absorb(records).map_err(|e| to_js_error(&e))?;
+        if self.session.step().is_none() {
+            self.result = Some(self.session.finish().map_err(|e| to_js_error(&e))?);
+        }
+        Ok(())
+    }
+
+    pub fn progress(&self) -> Result<JsValue, JsValue> {
+        to_js(&self.session.progress())
+    }
+
+    fn done(&self) -> Result<&pipeline::RunResult, JsValue> {
+        self.result.as_ref().ok_or_else(|| {
+            to_js_error(
+                &KilnError::usage("the run has not finished yet")
+                    .with_hint("absorb every step first"),
+            )
+        })
+    }
+
+    pub fn result(&self) -> Result<JsValue, JsValue> {
+        to_js(&self.done()?.outcome)
+    }
+
+    pub fn plot_draws(&self, max_points: usize) -> Result<JsValue, JsValue> {
+        to_js(&self.done()?.plot_draws(max_points))
+    }
+
+    pub fn draws_csv(&self) -> Result<String, JsValue> {
+        Ok(self.done()?.draws_csv())
+    }
 }

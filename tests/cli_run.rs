@@ -155,3 +155,38 @@ fn bad_options_exit_with_code_two() {
         assert!(!err.contains("panicked"));
     }
 }
+
+/// A run split over several sessions that each own some chains and exchange records after
+/// every step (as the page's workers do) gives exactly the report of one session owning all.
+#[test]
+fn a_run_split_over_sessions_matches_the_whole_run() {
+    use kiln::pipeline::{run, Overrides, Session};
+    let spec = kiln::parse_spec("t", MIXTURE_A).unwrap();
+    let o = Overrides {
+        seed: Some(2),
+        chains: Some(3),
+        ..Overrides::default()
+    };
+    let whole = run(&spec, &o).unwrap();
+    let mut parts: Vec<Session> = [vec![0, 2], vec![1]]
+        .iter()
+        .map(|owned| Session::new(&spec, &o, Some(owned)).unwrap())
+        .collect();
+    while parts[0].step().is_some() {
+        let mut all = Vec::new();
+        for p in parts.iter_mut() {
+            all.extend(p.run_step());
+        }
+        for p in parts.iter_mut() {
+            p.absorb(all.clone()).unwrap();
+        }
+    }
+    for p in &parts {
+        let r = p.finish().unwrap();
+        assert_eq!(
+            serde_json::to_string(&r.outcome).unwrap(),
+            serde_json::to_string(&whole.outcome).unwrap()
+        );
+        assert_eq!(r.draws_csv(), whole.draws_csv());
+    }
+}

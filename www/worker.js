@@ -1,0 +1,119 @@
+// Kiln engine worker (classic worker). Loads the WebAssembly engine and answers messages
+// from engine.js. It never touches the page; everything it sends back is plain data.
+//
+// Messages in (each may carry an `id` that is echoed back):
+//   {type: 'init', wasm?: ArrayBuffer}          load the engine (from bytes, or pkg/kiln_bg.wasm)
+//   {type: 'check', spec}                        check_spec(spec) -> {type: 'checked', result}
+//   {type: 'grid', spec, ix, iy, xmin, xmax, ymin, ymax, nx, ny} -> {type: 'grid', values}
+//   {type: 'session', spec, overrides, owned}   new RunSession -> {type: 'ready', ...state}
+//   {type: 'step'}                               run_step() -> {type: 'records', records}
+//   {type: 'absorb', all}                        absorb(all) -> {type: 'absorbed', progress, ...state}
+//   {type: 'finish', maxPoints}                  -> {type: 'final', result, draws, csv}
+// Any failure answers {type: 'error', error: {kind, message, rendered, ...}}.
+'use strict';
+
+// When this file is inlined after the engine's glue code (a Blob worker), the glue is already
+// defined; otherwise load it from the page's own origin.
+if (typeof wasm_bindgen === 'undefined') {
+  importScripts('pkg/kiln.js');
+}
+
+let kilnReady = null;
+let kilnSession = null;
+
+function plainError(e) {
+  if (e && typeof e === 'object' && typeof e.message === 'string' && typeof e.kind === 'string') {
+    return {
+      kind: e.kind,
+      message: e.message,
+      location: e.location || null,
+      hint: e.hint || null,
+      rendered: typeof e.rendered === 'string' ? e.rendered : 'error: ' + e.message + '\n',
+    };
+  }
+  // A JavaScript exception or a trap inside the engine: report it in the same shape.
+  const message = e && e.message ? String(e.message) : String(e);
+  return {
+    kind: 'internal',
+    message: message,
+    location: null,
+    hint: null,
+    rendered: 'error: the engine stopped unexpectedly: ' + message + '\n',
+  };
+}
+
+function sessionState(s) {
+  return {
+    chains: s.chains(),
+    settings: s.settings(),
+    stepCount: s.step_count(),
+    stepIndex: s.step_index(),
+    stepKind: s.step_kind(),
+    stepIterations: s.step_iterations(),
+  };
+}
+
+async function handle(msg) {
+  switch (msg.type) {
+    case 'init': {
+      if (!kilnReady) {
+        const source = msg.wasm ? msg.wasm : 'pkg/kiln_bg.wasm';
+        kilnReady = wasm_bindgen({ module_or_path: source });
+      }
+      await kilnReady;
+      return { type: 'inited', version: wasm_bindgen.version() };
+    }
+    case 'check': {
+      await kilnReady;
+      return { type: 'checked', result: wasm_bindgen.check_spec(msg.spec) };
+    }
+    case 'grid': {
+      await kilnReady;
+      const v = wasm_bindgen.log_density_grid(msg.spec, msg.ix, msg.iy, msg.xmin, msg.xmax,
+        msg.ymin, msg.ymax, msg.nx, msg.ny);
+      const values = v instanceof Float64Array ? v : Float64Array.from(v);
+      return { type: 'grid', values: values, transfer: [values.buffer] };
+    }
+    case 'session': {
+      await kilnReady;
+      if (kilnSession && kilnSession.free) kilnSession.free();
+      kilnSession = null;
+      kilnSession = new wasm_bindgen.RunSession(msg.spec, msg.overrides, Uint32Array.from(msg.owned));
+      return Object.assign({ type: 'ready' }, sessionState(kilnSession));
+    }
+    case 'step': {
+      return { type: 'records', records: kilnSession.run_step() };
+    }
+    case 'absorb': {
+      kilnSession.absorb(msg.all);
+      return Object.assign({ type: 'absorbed', progress: kilnSession.progress() },
+        sessionState(kilnSession));
+    }
+    case 'finish': {
+      const result = kilnSession.result();
+      const draws = kilnSession.plot_draws(msg.maxPoints || 4000);
+      const csv = kilnSession.draws_csv();
+      return { type: 'final', result: result, draws: draws, csv: csv };
+    }
+    default:
+      throw { kind: 'usage', message: 'unknown message ' + String(msg.type), rendered: '' };
+  }
+}
+
+// One message at a time, in order.
+let kilnQueue = Promise.resolve();
+self.onmessage = function (ev) {
+  const msg = ev.data || {};
+  kilnQueue = kilnQueue.then(async function () {
+    let reply;
+    try {
+      reply = await handle(msg);
+    } catch (e) {
+      reply = { type: 'error', error: plainError(e) };
+    }
+    reply.id = msg.id;
+    const transfer = reply.transfer || [];
+    delete reply.transfer;
+    self.postMessage(reply, transfer);
+  });
+};
