@@ -35,3 +35,28 @@ fn same_report_and_draws_as_native() {
         "the draws differ from the native ones"
     );
 }
+
+/// The page's path: two `RunSession`s owning one chain each, exchanging their records as
+/// workers do, give the native draws too.
+#[wasm_bindgen_test]
+fn sessions_split_over_workers_give_the_native_draws() {
+    use kiln::wasm::RunSession;
+    let overrides = r#"{"seed": 3, "chains": 2, "draws": 300, "warmup": 200}"#;
+    let mut a = RunSession::new(SPEC, overrides, vec![0])
+        .ok()
+        .expect("session A");
+    let mut b = RunSession::new(SPEC, overrides, vec![1])
+        .ok()
+        .expect("session B");
+    assert_eq!(a.step_count(), b.step_count());
+    while a.step_kind() != "done" {
+        let ra = a.run_step().ok().expect("step A");
+        let rb = b.run_step().ok().expect("step B");
+        let all = serde_json::to_string(&vec![rb, ra]).unwrap();
+        a.absorb(&all).ok().expect("absorb A");
+        b.absorb(&all).ok().expect("absorb B");
+    }
+    assert_eq!(b.step_kind(), "done");
+    assert_eq!(a.draws_csv().ok().expect("csv A"), NATIVE_CSV);
+    assert_eq!(b.draws_csv().ok().expect("csv B"), NATIVE_CSV);
+}
