@@ -1,7 +1,9 @@
 //! Stage 7: draws → estimates, diagnostics and the verdict.
 //!
 //! Owns, from the kept draws of a frozen plan (method note, "Estimates from every draw"):
-//! - `log Z = log ζ + g(0) − g(1) + log mean p(1|x) − log mean p(0|x)` and its standard error
+//! - `log Z = log ζ + g(0) − g(1) + log mean p(1|x) − log mean p(0|x) + log Q₊` (Q₊: the base's
+//!   mass on the target's support, 1 unless the density is zero somewhere; see
+//!   `Plan::measure_support`) and its standard error
 //!   from the linearised series `z_i = p1_i/mean(p1) − p0_i/mean(p0)`,
 //!   `SE² = var(z) / ESS(z)`, ESS pooled over chains by Geyer's initial monotone sequence
 //!   (Geyer 1992, "Practical Markov chain Monte Carlo", Statistical Science 7, 473) in the
@@ -415,7 +417,9 @@ pub fn log_z_estimate(plan: &Plan, records: &[Record]) -> LogZ {
     let g0 = plan.bias.values[0];
     let g1 = plan.bias.values[plan.bias.values.len() - 1];
     let (log_z, se, ess_z) = if tempered && total > 0 {
-        let log_z = plan.base.log_zeta + g0 - g1 + lse1 - lse0;
+        // + log Q₊: the base's mass on the target's support (see `Plan::measure_support`).
+        let (q_plus, q_se) = plan.support;
+        let log_z = plan.base.log_zeta + g0 - g1 + lse1 - lse0 + ln(q_plus);
         let zs: Vec<f64> = l1
             .iter()
             .zip(&l0)
@@ -429,7 +433,8 @@ pub fn log_z_estimate(plan: &Plan, records: &[Record]) -> LogZ {
             at += l;
         }
         let e = ess(&chains).max(1.0);
-        (log_z, sqrt(var / e), e)
+        let support_rel = q_se / q_plus;
+        (log_z, sqrt(var / e + support_rel * support_rel), e)
     } else {
         (f64::NAN, f64::NAN, f64::NAN)
     };

@@ -134,6 +134,9 @@ pub struct Plan {
     pub new_modes: usize,
     /// Gradient evaluations spent optimising from draws.
     pub discovery_evaluations: u64,
+    /// Q₊ = the base's mass where the target's density is not zero, and its standard error,
+    /// measured from base draws when warm-up ends (see [`Plan::measure_support`]).
+    pub support: (f64, f64),
     pub notes: Vec<String>,
 }
 
@@ -232,6 +235,7 @@ impl Plan {
             refitted: false,
             new_modes: 0,
             discovery_evaluations: 0,
+            support: (1.0, 0.0),
             notes: Vec::new(),
         };
         plan.set_metric(target.dim(), false)?;
@@ -621,7 +625,56 @@ fn bias_step(w: usize) -> f64 {
     [1.0, 1.0, 0.8, 0.6, 0.5, 0.4, 0.3][w.min(6)]
 }
 
+/// Base draws used to measure the base's mass on the target's support.
+pub const SUPPORT_DRAWS: usize = 4000;
+
 impl Plan {
+    /// Measures Q₊, the base's mass where the target's density is not zero.
+    ///
+    /// Where the target is zero (energy NaN or +∞), Δ = ∞: such points have zero marginal
+    /// probability in the tempered family, yet they carry the δ-like share Q₋ = 1 − Q₊ of
+    /// E[p(0|x)] (p(x) p(0|x) = q(x)/C for every x). A chain can never draw them, so the chain
+    /// average of p(0|x) estimates Q₊/C rather than 1/C, and log Z must gain + log Q₊. Q₊ is
+    /// the share of finite energies among independent base draws; its binomial standard error
+    /// enters the SE of log Z.
+    pub fn measure_support(&mut self, target: &Target) {
+        let d = self.dim();
+        let mut rng = Stream::new(self.options.seed, Purpose::Check, 1);
+        let mut ev = target.evaluator();
+        let mut scratch = self.base.q.scratch();
+        let mut z = vec![0.0; d];
+        let mut inside = 0usize;
+        let mut drawn = 0usize;
+        // A first batch; if any draw falls outside the support, ten times more for precision.
+        for batch in [SUPPORT_DRAWS, 9 * SUPPORT_DRAWS] {
+            for _ in 0..batch {
+                self.base.q.sample(&mut rng, &mut z, &mut scratch);
+                if ev.energy(&z).is_finite() {
+                    inside += 1;
+                }
+            }
+            drawn += batch;
+            if inside == drawn {
+                break;
+            }
+        }
+        self.discovery_evaluations += ev.evaluations;
+        let n = drawn as f64;
+        let q = inside as f64 / n;
+        if inside == drawn {
+            self.support = (1.0, 0.0);
+        } else if inside == 0 {
+            self.support = (f64::NAN, f64::NAN);
+        } else {
+            self.support = (q, sqrt(q * (1.0 - q) / n));
+            self.notes.push(format!(
+                "{:.1}% of the base approximation lies where the density is zero; log Z includes the correction log Q₊ = {:.4} for it",
+                100.0 * (1.0 - q),
+                ln(q)
+            ));
+        }
+    }
+
     /// g ← g − γ log p̂(b), normalised so that g(0) = 0.
     fn update_bias(&mut self, records: &[Record], step: f64) {
         let lm = log_marginal_at_knots(&self.bias, records);
@@ -918,11 +971,14 @@ impl Stepper {
                 if self.plan.is_tempered() && iterations > 0 {
                     self.learn(window, &records)?;
                 }
-                // Leaving warm-up: every chain keeps its averaged step size from now on.
+                // Leaving warm-up: every chain keeps its averaged step size from now on, and the
+                // frozen base's mass outside the target's support is measured.
                 if !matches!(self.steps.get(self.at + 1), Some(Step::Warmup { .. })) {
                     for c in self.chains.iter_mut() {
                         c.eps = c.adapt.final_eps();
                     }
+                    let target = self.target.clone();
+                    self.plan.measure_support(&target);
                 }
             }
             Step::Sample { .. } => {

@@ -339,3 +339,57 @@ fn runs_are_reproducible() {
         serde_json::to_string(&b).unwrap()
     );
 }
+
+/// Densities that are zero on part of the space (non-finite energy there): exact identities
+/// ∫₀^∞ e^{−x²/2} dx = √(2π)/2 and ∫ (1 − |x|) dx over [−1, 1] = 1.
+#[test]
+fn densities_zero_on_part_of_the_space() {
+    let o = run_spec(
+        json!({"variables": [{"name": "x"}], "energy": "0.5*x^2 + 0*sqrt(x)"}),
+        quick(12),
+    );
+    assert_log_z(
+        &o,
+        (2.0 * std::f64::consts::PI).sqrt().ln() - 2f64.ln(),
+        0.05,
+        "half-normal",
+    );
+    let o = run_spec(
+        json!({"variables": [{"name": "x"}], "log_density": "log(1 - abs(x))"}),
+        quick(13),
+    );
+    assert_log_z(&o, 0.0, 0.05, "triangle");
+}
+
+/// Widths from 1e-8 to 1e8 and log Z of ±1e4 (exact: a normal's log Z = log(s √(2π)) − c).
+#[test]
+fn extreme_widths_and_offsets() {
+    for (energy, truth) in [
+        (
+            "0.5*(x/1e-8)^2",
+            (1e-8 * (2.0 * std::f64::consts::PI).sqrt()).ln(),
+        ),
+        (
+            "0.5*(x/1e8)^2",
+            (1e8 * (2.0 * std::f64::consts::PI).sqrt()).ln(),
+        ),
+        (
+            "0.5*x^2 - 10000",
+            10000.0 + (2.0 * std::f64::consts::PI).sqrt().ln(),
+        ),
+        (
+            "0.5*x^2 + 10000",
+            -10000.0 + (2.0 * std::f64::consts::PI).sqrt().ln(),
+        ),
+    ] {
+        let o = run_spec(
+            json!({"variables": [{"name": "x"}], "energy": energy}),
+            quick(14),
+        );
+        assert!(
+            (o.log_z - truth).abs() < 1e-6 * (1.0 + truth.abs()),
+            "{energy}: {} vs {truth}",
+            o.log_z
+        );
+    }
+}
