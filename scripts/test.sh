@@ -36,6 +36,15 @@ cargo run --quiet --bin kiln -- run demo-targets/default-two-modes.json --seed 3
   --json --draws-csv target/determinism/native.csv > target/determinism/native.json
 cargo test --target wasm32-unknown-unknown --test wasm_determinism
 
+step "browser: build the page and run the end-to-end tests in headless Chromium"
+if [ ! -x /usr/bin/chromium ]; then
+  (apt-get update -qq && apt-get install -y -qq chromium) || { echo "could not install Chromium"; exit 1; }
+fi
+npm ci --no-audit --no-fund
+bash scripts/build-web.sh
+cargo build --bin kiln
+npm run e2e
+
 step "demo targets pass kiln check"
 cargo build --bin kiln
 for f in demo-targets/*.json; do

@@ -781,7 +781,15 @@ pub fn cross_checks(
         } else {
             f64::INFINITY * diff.signum()
         };
-        let agrees = diff.abs() <= 4.0 * comb || diff.abs() <= 0.01;
+        let within_errors = diff.abs() <= 4.0 * comb;
+        let agrees = within_errors || diff.abs() <= 0.01;
+        let mut note = note;
+        if agrees && !within_errors {
+            note.push_str(&format!(
+                "; {:.1} standard errors apart, but within the 0.01-nat floor below which differences are treated as negligible",
+                z.abs()
+            ));
+        }
         out.push(CrossCheck {
             name: name.into(),
             log_z: value,

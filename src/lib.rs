@@ -23,6 +23,8 @@ pub mod maths;
 pub mod rng;
 
 pub mod approx;
+pub mod baselines;
+pub mod bench;
 pub mod check;
 pub mod estimates;
 pub mod hmc;
@@ -40,6 +42,8 @@ pub mod tempering;
 
 #[cfg(target_arch = "wasm32")]
 pub mod wasm;
+#[cfg(target_arch = "wasm32")]
+pub mod wasm_bench;
 
 pub use error::{ErrorKind, KilnError};
 pub use spec::{parse_spec, Spec};

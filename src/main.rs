@@ -13,6 +13,7 @@ Usage:
   kiln run SPEC.json [options]        sample: log Z ± SE, mode masses, unknowns, cross-checks
   kiln compare A.json B.json [options]
                                       Bayes factor log(Z_A / Z_B) ± SE from two runs
+  kiln bench [--quick] [--json]       Kiln against AIS, parallel tempering, IS and NUTS at equal cost
   kiln --help | --version
 
 Options of run and compare (they override the spec's \"settings\"):
@@ -185,6 +186,7 @@ fn run(args: &[String]) -> Result<String, KilnError> {
                 Ok(report::compare_text(&c, &files[0], &files[1]))
             }
         }
+        "bench" => kiln::bench::command(&args[1..]),
         other => {
             let known = ["check", "run", "compare"];
             let hint = match kiln::error::nearest(other, known) {

@@ -819,15 +819,31 @@ impl Plan {
     }
 }
 
-/// One step of a run: a warm-up window (followed by learning) or a chunk of kept draws.
+/// One step of a run: a piece of a warm-up window (the window's last piece is followed by
+/// learning from the whole window) or a chunk of kept draws.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize)]
 pub enum Step {
-    Warmup { window: usize, iterations: usize },
-    Sample { chunk: usize, iterations: usize },
+    Warmup {
+        window: usize,
+        iterations: usize,
+        last_of_window: bool,
+    },
+    Sample {
+        chunk: usize,
+        iterations: usize,
+    },
 }
 
-/// How many chunks the kept draws are made in (progress is reported after each).
-pub const SAMPLING_CHUNKS: usize = 10;
+/// Most iterations per chain in one step, so that a step stays short (progress is reported and
+/// a cancel in the page takes effect between steps; a running WebAssembly call cannot be
+/// interrupted).
+pub const MAX_STEP_ITERATIONS: usize = 100;
+
+/// Splits `n` iterations into pieces of at most [`MAX_STEP_ITERATIONS`] (at least one piece).
+fn pieces(n: usize) -> Vec<usize> {
+    let k = n.div_ceil(MAX_STEP_ITERATIONS).max(1);
+    (0..k).map(|i| n / k + usize::from(i < n % k)).collect()
+}
 
 /// A run as a fixed sequence of steps, for all chains or for a subset of them.
 ///
@@ -847,6 +863,8 @@ pub struct Stepper {
     merge_rng: Stream,
     /// Kept draws of every chain, concatenated over sampling chunks (index = chain).
     pub kept: Vec<Record>,
+    /// The current warm-up window's records so far, every chain (index = chain).
+    window: Vec<Record>,
 }
 
 fn merge_records(into: &mut Record, r: &Record) {
@@ -895,24 +913,28 @@ impl Stepper {
         for c in chains.iter_mut() {
             c.restart_adaptation(&plan);
         }
-        let mut steps: Vec<Step> = window_lengths(plan.options.warmup)
-            .into_iter()
-            .enumerate()
-            .map(|(window, iterations)| Step::Warmup { window, iterations })
-            .collect();
-        let draws = plan.options.draws;
-        let chunks = SAMPLING_CHUNKS.min(draws.max(1));
-        for chunk in 0..chunks {
-            let iterations = draws / chunks + usize::from(chunk < draws % chunks);
+        let mut steps: Vec<Step> = Vec::new();
+        for (window, len) in window_lengths(plan.options.warmup).into_iter().enumerate() {
+            let parts = pieces(len);
+            let n = parts.len();
+            for (i, iterations) in parts.into_iter().enumerate() {
+                steps.push(Step::Warmup {
+                    window,
+                    iterations,
+                    last_of_window: i + 1 == n,
+                });
+            }
+        }
+        for (chunk, iterations) in pieces(plan.options.draws).into_iter().enumerate() {
             steps.push(Step::Sample { chunk, iterations });
         }
         let merge_rng = Stream::new(plan.options.seed, Purpose::Resample, 1 << 20);
-        let kept = (0..plan.options.chains)
-            .map(|c| Record {
-                chain: c,
-                ..Record::default()
-            })
-            .collect();
+        let fresh = |c: usize| Record {
+            chain: c,
+            ..Record::default()
+        };
+        let kept = (0..plan.options.chains).map(fresh).collect();
+        let window = (0..plan.options.chains).map(fresh).collect();
         Ok(Stepper {
             plan,
             target: target.clone(),
@@ -923,6 +945,7 @@ impl Stepper {
             since_reset: 0,
             merge_rng,
             kept,
+            window,
         })
     }
 
@@ -967,9 +990,25 @@ impl Stepper {
             )));
         }
         match step {
-            Step::Warmup { window, iterations } => {
-                if self.plan.is_tempered() && iterations > 0 {
-                    self.learn(window, &records)?;
+            Step::Warmup {
+                window,
+                last_of_window,
+                ..
+            } => {
+                for r in &records {
+                    merge_records(&mut self.window[r.chain], r);
+                }
+                if last_of_window {
+                    let whole: Vec<Record> = std::mem::take(&mut self.window);
+                    self.window = (0..self.plan.options.chains)
+                        .map(|c| Record {
+                            chain: c,
+                            ..Record::default()
+                        })
+                        .collect();
+                    if self.plan.is_tempered() && whole.iter().any(|r| r.iterations > 0) {
+                        self.learn(window, &whole)?;
+                    }
                 }
                 // Leaving warm-up: every chain keeps its averaged step size from now on, and the
                 // frozen base's mass outside the target's support is measured.

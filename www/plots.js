@@ -58,7 +58,7 @@
     return { values: out, step: step };
   }
   function fmtTick(v, step) {
-    if (v === 0) return '0';
+    if (Math.abs(v) < step * 1e-6) return '0';
     const a = Math.abs(v);
     if (a >= 1e5 || a < 1e-4) return minus(v.toExponential(1));
     const d = Math.max(0, Math.min(10, -Math.floor(Math.log10(step) + 1e-9)));
@@ -68,6 +68,20 @@
   function scale(d0, d1, r0, r1) {
     const k = (r1 - r0) / ((d1 - d0) || 1);
     return function (v) { return r0 + (v - d0) * k; };
+  }
+
+  // When the span is tiny next to the values, ticks are shown relative to an offset named in
+  // the axis label (so 2.19722457 ± 1e-9 does not print as eleven-digit labels).
+  function offsetFor(range, step) {
+    const mid = (range[0] + range[1]) / 2;
+    if (!(Math.abs(mid) > 0) || step / Math.abs(mid) > 1e-6) return 0;
+    const unit = Math.pow(10, Math.floor(Math.log10(step)) + 2);
+    return Math.round(mid / unit) * unit;
+  }
+  function offsetLabel(label, off) {
+    if (!off) return label;
+    const t = String(Number(off.toPrecision(12)));
+    return (label || '') + ' ' + (off > 0 ? '\u2212 ' + t : '+ ' + minus(t).replace('\u2212', ''));
   }
 
   // Frame, grid lines, ticks and axis labels. f = {x0, y0, x1, y1}; xr/yr = [min, max].
@@ -94,18 +108,21 @@
     ctx.font = SMALL;
     ctx.textAlign = 'center';
     ctx.textBaseline = 'top';
+    const xoff = offsetFor(xr, xt.step), yoff = offsetFor(yr, yt.step);
+    if (xoff) xlabel = offsetLabel(xlabel, xoff);
+    if (yoff) ylabel = offsetLabel(ylabel, yoff);
     ctx.beginPath();
     for (const v of xt.values) {
       const x = Math.round(sx(v)) + 0.5;
       ctx.moveTo(x, f.y1); ctx.lineTo(x, f.y1 + 4);
-      ctx.fillText(fmtTick(v, xt.step), x, f.y1 + 6);
+      ctx.fillText(fmtTick(v - xoff, xt.step), x, f.y1 + 6);
     }
     ctx.textAlign = 'right';
     ctx.textBaseline = 'middle';
     for (const v of yt.values) {
       const y = Math.round(sy(v)) + 0.5;
       ctx.moveTo(f.x0 - 4, y); ctx.lineTo(f.x0, y);
-      ctx.fillText(fmtTick(v, yt.step), f.x0 - 6, y);
+      ctx.fillText(fmtTick(v - yoff, yt.step), f.x0 - 6, y);
     }
     ctx.stroke();
     ctx.fillStyle = INK;
@@ -397,7 +414,7 @@
       for (let i = 0; i < g.nx; i++) { dens[i] /= tot || 1; if (dens[i] > ymax) ymax = dens[i]; }
     }
     let h = null;
-    const bins = 80;
+    const bins = o.bins || 80;
     if (o.samples && o.samples.x.length) {
       h = histogram(o.samples.x, o.samples.mode, xr[0], xr[1], bins);
       const n = o.samples.x.length;
@@ -407,10 +424,7 @@
     const sc = axes(ctx, f, xr, yr, o.name, 'density', {});
     if (h) {
       const n = o.samples.x.length;
-      ctx.save();
-      ctx.globalAlpha = 0.75;
       drawStacked(ctx, h, xr[0], sc.sx, function (c) { return sc.sy(c / (n * h.width)); });
-      ctx.restore();
     }
     if (dens) {
       ctx.save();
@@ -467,42 +481,102 @@
     }
   }
 
-  // β trace per chain (left) and the pooled β histogram (right, sharing the β axis).
+  // β trace per chain (one strip each, up to 8 chains; overlaid beyond) on the left, and the
+  // pooled histogram of β on the right.
   function betaPlot(canvas, o) {
-    const p = prepare(canvas, o.height || 260);
+    const trace = (o.trace || []).filter(function (t) { return Array.isArray(t); });
+    const K = trace.length;
+    const strips = K <= 8 ? Math.max(1, K) : 1;
+    const stripH = strips === 1 ? 150 : Math.max(34, Math.min(60, Math.floor(240 / strips)));
+    const gap = strips === 1 ? 0 : 6;
+    const top = 26, bottom = 46;
+    const p = prepare(canvas, top + strips * stripH + (strips - 1) * gap + bottom);
     if (!p) return;
     const ctx = p.ctx;
-    const trace = o.trace || [];
-    const split = Math.round(p.w * 0.76);
-    const f = { x0: 52, y0: 26, x1: split - 10, y1: p.h - 46 };
-    const g = { x0: split + 6, y0: f.y0, x1: p.w - 14, y1: f.y1 };
+    const split = Math.round(p.w * 0.72);
     let n = 0;
     for (const t of trace) n = Math.max(n, t.length);
-    const sc = axes(ctx, f, [0, Math.max(1, n - 1)], [0, 1], 'kept draw (thinned), per chain', '\u03b2', { yTicks: 5, yLabelGap: 38 });
-    ctx.save();
-    ctx.beginPath(); ctx.rect(f.x0, f.y0, f.x1 - f.x0, f.y1 - f.y0); ctx.clip();
-    ctx.lineWidth = 0.9;
-    ctx.globalAlpha = 0.8;
-    trace.forEach(function (t, c) {
-      ctx.strokeStyle = chainColor(c);
-      ctx.beginPath();
-      for (let i = 0; i < t.length; i++) { const x = sc.sx(i), y = sc.sy(t[i]); if (i === 0) ctx.moveTo(x, y); else ctx.lineTo(x, y); }
-      ctx.stroke();
-    });
-    ctx.restore();
+    const xr = [0, Math.max(1, n - 1)];
+    const x0 = 66, x1 = split - 12;
+    const sx = scale(xr[0], xr[1], x0, x1);
+    for (let k = 0; k < strips; k++) {
+      const f = { x0: x0, y0: top + k * (stripH + gap), x1: x1, y1: top + k * (stripH + gap) + stripH };
+      ctx.fillStyle = '#fafbfc';
+      ctx.fillRect(f.x0, f.y0, f.x1 - f.x0, f.y1 - f.y0);
+      ctx.strokeStyle = FRAME;
+      ctx.lineWidth = 1;
+      ctx.strokeRect(Math.round(f.x0) + 0.5, Math.round(f.y0) + 0.5, Math.round(f.x1 - f.x0), Math.round(f.y1 - f.y0));
+      const sy = scale(0, 1, f.y1 - 2, f.y0 + 2);
+      ctx.save();
+      ctx.beginPath(); ctx.rect(f.x0, f.y0, f.x1 - f.x0, f.y1 - f.y0); ctx.clip();
+      ctx.lineWidth = 0.8;
+      const chainsHere = strips === 1 ? trace.map(function (t, c) { return c; }) : [k];
+      ctx.globalAlpha = chainsHere.length > 1 ? 0.7 : 0.9;
+      for (const c of chainsHere) {
+        const t = trace[c];
+        ctx.strokeStyle = chainColor(c);
+        ctx.beginPath();
+        for (let i = 0; i < t.length; i++) { const x = sx(i), y = sy(t[i]); if (i === 0) ctx.moveTo(x, y); else ctx.lineTo(x, y); }
+        ctx.stroke();
+      }
+      ctx.restore();
+      ctx.font = SMALL;
+      ctx.fillStyle = MUTED;
+      ctx.textAlign = 'right';
+      ctx.textBaseline = 'middle';
+      ctx.fillText('1', f.x0 - 4, f.y0 + 5);
+      ctx.fillText('0', f.x0 - 4, f.y1 - 5);
+      if (strips > 1) {
+        ctx.fillStyle = chainColor(k);
+        ctx.fillRect(6, (f.y0 + f.y1) / 2 - 1.5, 10, 3);
+        ctx.fillStyle = INK;
+        ctx.textAlign = 'left';
+        ctx.fillText('chain ' + (k + 1), 19, (f.y0 + f.y1) / 2);
+      }
+    }
+    const yBottom = top + strips * stripH + (strips - 1) * gap;
+    // x axis under the last strip.
+    const xt = ticks(xr[0], xr[1], Math.max(2, Math.round((x1 - x0) / 90)));
+    ctx.font = SMALL;
+    ctx.fillStyle = MUTED;
+    ctx.strokeStyle = FRAME;
+    ctx.textAlign = 'center';
+    ctx.textBaseline = 'top';
+    ctx.beginPath();
+    for (const v of xt.values) { const x = Math.round(sx(v)) + 0.5; ctx.moveTo(x, yBottom); ctx.lineTo(x, yBottom + 4); ctx.fillText(fmtTick(v, xt.step), x, yBottom + 6); }
+    ctx.stroke();
+    ctx.font = FONT;
+    ctx.fillStyle = INK;
+    ctx.fillText('kept draw (thinned)', (x0 + x1) / 2, yBottom + 22);
+    if (strips === 1) {
+      ctx.save();
+      ctx.translate(16, (top + yBottom) / 2);
+      ctx.rotate(-Math.PI / 2);
+      ctx.textAlign = 'center';
+      ctx.textBaseline = 'middle';
+      ctx.fillText('\u03b2', 0, 0);
+      ctx.restore();
+      const items = trace.slice(0, 12).map(function (t, c) { return { color: chainColor(c), label: 'chain ' + (c + 1), line: true }; });
+      legend(ctx, x0, 12, x1, items);
+    } else {
+      ctx.font = SMALL; ctx.fillStyle = MUTED; ctx.textAlign = 'left'; ctx.textBaseline = 'middle';
+      ctx.fillText('\u03b2 of each chain over its kept draws (0 at the bottom of a strip, 1 at the top)', x0, 12);
+    }
+    // Pooled histogram of β.
     const bins = 20;
     const counts = new Array(bins).fill(0);
     let total = 0;
     for (const t of trace) for (const b of t) { if (isFinite(b)) { counts[Math.min(bins - 1, Math.max(0, Math.floor(b * bins)))]++; total++; } }
-    const mx = Math.max(1, Math.max.apply(null, counts));
-    const hs = axes(ctx, g, [0, mx / (total || 1) * 1.1], [0, 1], 'share', null, { noYTicks: true, xTicks: 2, noGrid: true });
+    let mx = 0;
+    for (const c of counts) mx = Math.max(mx, c / (total || 1));
+    const g = { x0: split + 40, y0: top, x1: p.w - 14, y1: yBottom };
+    const hs = axes(ctx, g, [0, 1], [0, (mx || 1) * 1.1], '\u03b2 (all chains)', 'share', { xTicks: 2, yTicks: 3, yLabelGap: 34 });
     ctx.fillStyle = '#7f8b99';
     for (let b = 0; b < bins; b++) {
-      const y0 = hs.sy(b / bins), y1 = hs.sy((b + 1) / bins);
-      ctx.fillRect(g.x0, y1 + 0.5, hs.sx(counts[b] / (total || 1)) - g.x0, y0 - y1 - 1);
+      const xa = hs.sx(b / bins), xb = hs.sx((b + 1) / bins);
+      const y = hs.sy(counts[b] / (total || 1));
+      ctx.fillRect(xa + 0.5, y, Math.max(0.5, xb - xa - 1), g.y1 - y);
     }
-    const items = trace.slice(0, 8).map(function (t, c) { return { color: chainColor(c), label: 'chain ' + (c + 1), line: true }; });
-    legend(ctx, f.x0, 12, f.x1, items);
   }
 
   // Running log Z with its ±2 SE band; refs = [{name, value}] drawn as dashed lines.
@@ -526,6 +600,8 @@
     });
     const refs = (o.refs || []).filter(function (r) { return isFinite(r.value); });
     for (const r of refs) { lo = Math.min(lo, r.value); hi = Math.max(hi, r.value); }
+    // Differences below 1e-4 nats mean nothing for log Z: never zoom in further than that.
+    if (hi - lo < 1e-4) { const mid = (lo + hi) / 2; lo = mid - 5e-5; hi = mid + 5e-5; }
     const yr = pad([lo, hi], 0.12);
     const xr = [0, Math.max(run[run.length - 1].draws, 1)];
     const sc = axes(ctx, f, xr, yr, 'kept draws (all chains)', 'log Z', { yLabelGap: 56 });

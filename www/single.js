@@ -64,7 +64,7 @@
     };
   }
 
-  // Text safe inside <script>…</script>: JSON with every '<' escaped.
+  // Text safe inside a script element: JSON with every '<' escaped.
   function jsonForScript(value) {
     return JSON.stringify(value).replace(/</g, '\\u003c');
   }
@@ -97,8 +97,8 @@
     html = html.replace(/<script[^>]+src=["'][^"']+["'][^>]*>\s*<\/script>/gi, '');
     const head = '<meta http-equiv="Content-Security-Policy" content="' + csp + '">\n<style>' + css + '</style>\n';
     html = html.replace(/<head>/i, '<head>\n' + head);
-    const body = '<script type="application/json" id="kiln-embed">' + embedText + '</script>\n' +
-      scripts.map((s) => '<script>' + s + '</script>').join('\n') + '\n';
+    const body = '<script type="application/json" id="kiln-embed">' + embedText + '<\/script>\n' +
+      scripts.map((s) => '<script>' + s + '<\/script>').join('\n') + '\n';
     html = html.replace(/<\/body>/i, body + '</body>');
     if (options.title) {
       const t = String(options.title).replace(/[<>&]/g, ' ');

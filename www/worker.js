@@ -22,6 +22,7 @@ let kilnReady = null;
 let kilnSession = null;
 
 function plainError(e) {
+  if (e instanceof Map) e = Object.fromEntries(e);
   if (e && typeof e === 'object' && typeof e.message === 'string' && typeof e.kind === 'string') {
     return {
       kind: e.kind,
