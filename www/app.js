@@ -882,6 +882,12 @@
         if (slot.run !== run || run.status !== 'running') return;
         run.info = info;
         run.progress = info.progress;
+        // For tests and benchmarks: the latest running log Z and its SE, as data attributes.
+        const rl = info.progress && info.progress.running;
+        if (rl && rl.length) {
+          document.body.dataset.runningSe = String(rl[rl.length - 1].log_z_se);
+          document.body.dataset.runningDraws = String(rl[rl.length - 1].draws);
+        }
         scheduleRender();
       },
     });

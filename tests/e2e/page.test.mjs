@@ -180,3 +180,25 @@ test('markup in every string field renders as text', async () => {
   assert.equal(await page.$$eval('b', (els) => els.filter((e) => e.textContent === 'x').length), 0);
   await context.close();
 });
+
+test('Cancel stops a run within 100 ms and the page stays usable', async () => {
+  const { page, context } = await openPage(browser);
+  await page.goto(server.origin + '/#demo=default-two-modes.json');
+  await ready(page);
+  await page.fill(id('draws-input'), '200000');
+  await page.click(id('run-button'));
+  await page.waitForFunction(() => document.body.dataset.runState === 'running' && document.body.dataset.runningSe !== undefined, null, { timeout: 60000 });
+  const took = await page.evaluate(async () => {
+    const t0 = performance.now();
+    document.querySelector('[data-testid="cancel-button"]').click();
+    while (document.body.dataset.runState === 'running') await new Promise((r) => setTimeout(r, 1));
+    return { ms: performance.now() - t0, state: document.body.dataset.runState };
+  });
+  assert.equal(took.state, 'cancelled');
+  assert.ok(took.ms < 100, `cancel took ${took.ms} ms`);
+  await shot(page, '06-cancelled');
+  // The page answers at once afterwards: a new run can start.
+  await page.fill(id('draws-input'), '300');
+  await runAndWait(page);
+  await context.close();
+});
