@@ -884,6 +884,26 @@ pub fn mode_from(
     Ok(None)
 }
 
+/// Optimises from `start` unless it already lies inside a known mode (squared Mahalanobis
+/// distance below 9); a new mode is merged into `modes`. Returns the optimiser runs made (0/1).
+fn optimise_if_unexplored(
+    target: &Target,
+    ev: &mut TargetEval,
+    modes: &mut Vec<Mode>,
+    start: &[f64],
+) -> Result<usize, KilnError> {
+    if modes
+        .iter()
+        .any(|known| mahalanobis2(start, &known.z, &known.hessian) < 9.0)
+    {
+        return Ok(0);
+    }
+    if let Some(found) = mode_from(target, ev, start)? {
+        merge_mode(modes, found);
+    }
+    Ok(1)
+}
+
 /// Most modes whose neighbourhoods the barrier-crossing search explores.
 const MAX_HOP_MODES: usize = 600;
 
@@ -920,16 +940,7 @@ fn hop_search(
                 let Some(start) = cross_barrier(ev, target, &m, &v, sign * sd) else {
                     continue;
                 };
-                if modes
-                    .iter()
-                    .any(|known| mahalanobis2(&start, &known.z, &known.hessian) < 9.0)
-                {
-                    continue;
-                }
-                runs += 1;
-                if let Some(found) = mode_from(target, ev, &start)? {
-                    merge_mode(modes, found);
-                }
+                runs += optimise_if_unexplored(target, ev, modes, &start)?;
             }
         }
     }
@@ -1039,16 +1050,7 @@ fn lattice_search(
                 if beyond_edge(&c, &target.transforms) {
                     continue;
                 }
-                if modes
-                    .iter()
-                    .any(|known| mahalanobis2(&c, &known.z, &known.hessian) < 9.0)
-                {
-                    continue;
-                }
-                runs += 1;
-                if let Some(found) = mode_from(target, ev, &c)? {
-                    merge_mode(modes, found);
-                }
+                runs += optimise_if_unexplored(target, ev, modes, &c)?;
             }
         }
     }

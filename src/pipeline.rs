@@ -76,6 +76,18 @@ pub struct CheckOutcome {
     pub warnings: Vec<String>,
 }
 
+/// The unknowns as reported: names and bounds.
+fn unknowns_of(spec: &Spec) -> Vec<Unknown> {
+    spec.variables
+        .iter()
+        .map(|v| Unknown {
+            name: v.name.clone(),
+            lower: v.bounds.lower,
+            upper: v.bounds.upper,
+        })
+        .collect()
+}
+
 /// A target with its modes and Laplace approximation: the input of every later stage.
 #[derive(Clone, Debug)]
 pub struct Prepared {
@@ -168,15 +180,7 @@ pub fn check(spec: &Spec) -> Result<CheckOutcome, KilnError> {
         notes: spec.notes.clone(),
         model: spec.model.field().to_string(),
         dimension: p.target.dim(),
-        unknowns: spec
-            .variables
-            .iter()
-            .map(|v| Unknown {
-                name: v.name.clone(),
-                lower: v.bounds.lower,
-                upper: v.bounds.upper,
-            })
-            .collect(),
+        unknowns: unknowns_of(spec),
         data_columns: spec.data.iter().map(|(n, _)| n.clone()).collect(),
         data_rows: spec.data_rows,
         modes,
@@ -451,15 +455,7 @@ pub fn finish_run(
     let outcome = RunOutcome {
         title: spec.title.clone(),
         dimension: p.target.dim(),
-        unknowns: spec
-            .variables
-            .iter()
-            .map(|v| Unknown {
-                name: v.name.clone(),
-                lower: v.bounds.lower,
-                upper: v.bounds.upper,
-            })
-            .collect(),
+        unknowns: unknowns_of(spec),
         settings,
         log_z,
         log_z_se,
