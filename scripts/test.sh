@@ -32,6 +32,7 @@ cargo build --lib --release --target wasm32-unknown-unknown
 
 step "native and WebAssembly give identical numbers and draws"
 mkdir -p target/determinism
+cargo test --quiet --test error_objects   # writes target/determinism/errors.json
 cargo run --quiet --bin kiln -- run demo-targets/default-two-modes.json --seed 3 --chains 2 --draws 300 --warmup 200 \
   --json --draws-csv target/determinism/native.csv > target/determinism/native.json
 cargo test --target wasm32-unknown-unknown --test wasm_determinism

@@ -60,3 +60,39 @@ fn sessions_split_over_workers_give_the_native_draws() {
     assert_eq!(a.draws_csv().ok().expect("csv A"), NATIVE_CSV);
     assert_eq!(b.draws_csv().ok().expect("csv B"), NATIVE_CSV);
 }
+
+const BAD_SPECS: &str = include_str!("bad_input_specs.json");
+const NATIVE_ERRORS: &str = include_str!("../target/determinism/errors.json");
+
+/// Every case of the bad-input catalogue gives, through the WebAssembly API, the same error
+/// object (kind, message, location, hint) as natively.
+#[wasm_bindgen_test]
+fn bad_inputs_give_the_same_error_objects_as_native() {
+    let cases: Vec<serde_json::Value> = serde_json::from_str(BAD_SPECS).unwrap();
+    let native: Vec<serde_json::Value> = serde_json::from_str(NATIVE_ERRORS).unwrap();
+    assert_eq!(cases.len(), native.len());
+    for (c, n) in cases.iter().zip(&native) {
+        let name = c["name"].as_str().unwrap();
+        let err = match kiln::wasm::check_spec(c["spec"].as_str().unwrap()) {
+            Ok(_) => panic!("case `{name}` was accepted in WebAssembly"),
+            Err(e) => e,
+        };
+        let text: String = js_sys::JSON::stringify(&err)
+            .map(String::from)
+            .unwrap_or_default();
+        let got: serde_json::Value = serde_json::from_str(&text)
+            .unwrap_or_else(|_| panic!("`{name}`: not an object: {text}"));
+        for field in ["kind", "message", "location", "hint"] {
+            assert_eq!(
+                got[field], n["error"][field],
+                "case `{name}`, field `{field}`"
+            );
+        }
+        assert!(
+            got["rendered"]
+                .as_str()
+                .is_some_and(|r| r.starts_with("error: ")),
+            "{name}"
+        );
+    }
+}
