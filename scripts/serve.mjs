@@ -12,8 +12,7 @@ const types = {
   '.mjs': 'text/javascript; charset=utf-8', '.css': 'text/css; charset=utf-8',
   '.json': 'application/json', '.wasm': 'application/wasm', '.png': 'image/png', '.svg': 'image/svg+xml',
 };
-export const CSP = "default-src 'none'; script-src 'self' 'wasm-unsafe-eval'; worker-src 'self' blob:; " +
-  "connect-src 'self'; style-src 'self'; img-src 'self' data: blob:; base-uri 'none'; form-action 'none'";
+import { CSP } from './serve-csp.mjs';
 
 const server = http.createServer((req, res) => {
   const u = new URL(req.url, 'http://localhost');

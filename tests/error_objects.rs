@@ -34,6 +34,22 @@ fn every_bad_input_is_a_clear_error_and_the_objects_are_recorded() {
             assert!(loc.line >= 1 && loc.column >= 1, "{name}");
             assert!(err.render().contains('^'), "{name}");
         }
+        // The command line: exit code 2 and the same message on standard error, never a panic.
+        let file = std::env::temp_dir().join(format!(
+            "kiln-error-objects-{}-{name}.json",
+            std::process::id()
+        ));
+        std::fs::write(&file, spec).unwrap();
+        let run = std::process::Command::new(env!("CARGO_BIN_EXE_kiln"))
+            .arg("check")
+            .arg(&file)
+            .output()
+            .unwrap();
+        let _ = std::fs::remove_file(&file);
+        let stderr = String::from_utf8_lossy(&run.stderr);
+        assert_eq!(run.status.code(), Some(2), "case `{name}`: {stderr}");
+        assert!(stderr.contains(&err.message), "case `{name}`: {stderr}");
+        assert!(!stderr.contains("panicked"), "case `{name}`");
         out.push(serde_json::json!({ "name": name, "error": err }));
     }
     let dir = concat!(env!("CARGO_MANIFEST_DIR"), "/target/determinism");

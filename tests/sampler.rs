@@ -393,3 +393,20 @@ fn extreme_widths_and_offsets() {
         );
     }
 }
+
+/// A flat-topped mode (zero Hessian at the mode: ∫ e^{−x⁴} dx = Γ(1/4)/2, exact identity) and a
+/// mode on a bound (∫₀^∞ e^{−3x} dx = 1/3).
+#[test]
+fn singular_hessian_and_mode_on_a_bound() {
+    let gamma_quarter = 3.625_609_908_221_908_f64; // Γ(1/4), a known constant
+    let o = run_spec(
+        json!({"variables": [{"name": "x"}], "energy": "x^4"}),
+        quick(15),
+    );
+    assert_log_z(&o, (gamma_quarter / 2.0).ln(), 0.05, "x^4");
+    let o = run_spec(
+        json!({"variables": [{"name": "x", "lower": 0}], "energy": "3*x"}),
+        quick(16),
+    );
+    assert_log_z(&o, (1.0f64 / 3.0).ln(), 0.05, "exponential on a half-line");
+}
