@@ -50,7 +50,7 @@ step "fuzzing: a short run of each target over the kept corpus (nightly toolchai
 if rustup toolchain list | grep -q '^nightly'; then
   command -v cargo-fuzz >/dev/null || cargo install cargo-fuzz
   (cd fuzz && for t in spec_parse formula; do
-     cargo +nightly fuzz run "$t" "corpus/$t" -- -max_total_time=30 -max_len=4096 -timeout=10 -rss_limit_mb=4096 2>&1 | tail -n 2
+     cargo +nightly fuzz run "$t" "corpus/$t" -- -max_total_time=30 -max_len=4096 -timeout=60 -rss_limit_mb=4096 2>&1 | tail -n 2
      test "${PIPESTATUS[0]}" -eq 0 || { echo "fuzz target $t found a failure"; exit 1; }
    done)
 else
