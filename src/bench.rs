@@ -265,7 +265,7 @@ pub fn targets() -> Vec<BenchTarget> {
         description: "egg crate, 18 peaks of (2 + cos(x/2) cos(y/2))^5 on [0, 10π]², uniform prior (2-D)".into(),
         spec,
         log_z: lz,
-        reference: "scipy quadrature (tests/reference/scipy_values.json); published 235.88 (Feroz, Hobson & Bridges 2009, \"MultiNest\", MNRAS 398, 1601); masses 0.08/0.04/0.02 for inner/edge/corner peaks by symmetry".into(),
+        reference: "scipy quadrature (tests/reference/scipy_values.json); published 235.88 (Feroz, Hobson & Bridges 2009, MNRAS 398, 1601); masses 0.08/0.04/0.02 for inner/edge/corner peaks by symmetry".into(),
         groups: Groups::Nearest { centres, masses },
     });
 
