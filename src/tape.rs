@@ -232,7 +232,7 @@ fn eval_row(
 
 fn const_slot(seg: &mut SegBuilder, v: f64) -> u32 {
     if let Some(&s) = seg.consts.get(&v.to_bits()) {
-        return s;
+        return s | CONST_TAG;
     }
     // Constants are numbered first; inputs and code are offset when the segment is finished.
     let s = seg.init.len() as u32;

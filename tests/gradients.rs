@@ -219,3 +219,40 @@ fn mixture_targets_have_exact_gradients() {
     }
     assert!(checked >= 45);
 }
+
+/// A constant `sum` next to a constant: value and gradient evaluation agree (found by fuzzing).
+#[test]
+fn constant_sums_evaluate_the_same_with_and_without_gradient() {
+    let t = target(
+        r#"{"variables": [{"name": "x"}, {"name": "y", "lower": -2, "upper": 3}],
+            "data": {"d": [0.5, -1.0, 2.0]}, "energy": "3 +sum(1)"}"#,
+    );
+    let mut ev = t.evaluator();
+    let mut g = [0.0; 2];
+    let a = ev.energy_grad(&[6.4, 0.0], &mut g);
+    let b = ev.energy(&[6.4, 0.0]);
+    assert_eq!(a.to_bits(), b.to_bits(), "{a} vs {b}");
+}
+
+/// Constants the compiler makes (a sum over rows of a row-independent body is rows × body)
+/// that equal a constant of the formula share its slot correctly (found by fuzzing).
+#[test]
+fn compiler_constants_equal_to_formula_constants() {
+    // Two data rows: sum(y) compiles to 2 * y, next to the formula's own 2.
+    let t = target(
+        r#"{"variables": [{"name": "x"}, {"name": "y"}], "data": {"d": [1, 2]}, "energy": "2*x^2 + sum(y^2) + 0.5*sum(1) + 1"}"#,
+    );
+    let mut ev = t.evaluator();
+    let (x, y) = (0.7f64, -1.3f64);
+    let want = 2.0 * x * x + 2.0 * y * y + 0.5 * 2.0 + 1.0;
+    let mut g = [0.0; 2];
+    let e = ev.energy_grad(&[x, y], &mut g);
+    assert!(
+        (e - want).abs() < 1e-12 && (ev.energy(&[x, y]) - want).abs() < 1e-12,
+        "{e} vs {want}"
+    );
+    assert!(
+        (g[0] - 4.0 * x).abs() < 1e-12 && (g[1] - 4.0 * y).abs() < 1e-12,
+        "{g:?}"
+    );
+}
