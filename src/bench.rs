@@ -425,7 +425,7 @@ pub fn kiln_run(
     let t2 = Instant::now();
     let plan = &steppers[0].plan;
     let kept = &steppers[0].kept;
-    let lz = crate::estimates::log_z_estimate(plan, kept);
+    let lz = crate::estimates::log_z_with_controls(plan, kept);
     let d = prep.target.dim();
     let mut out = Draws {
         dim: d,
@@ -450,10 +450,26 @@ pub fn kiln_run(
         draws: out,
         seconds,
         notes: format!(
-            "{} warm-up + {} kept iterations × {chains} chains{}{}",
+            "log Z ± {:.2e} (ESS {:.0}); {} warm-up + {} kept iterations × {chains} chains; Hamiltonian moves in {:.1}% of kept iterations{}{}",
+            lz.se,
+            lz.ess,
             opts.warmup,
             kept.first().map_or(0, |r| r.iterations),
-            if plan.refitted { "; base refitted" } else { "" },
+            100.0 * kept.iter().map(|r| r.transitions).sum::<usize>() as f64
+                / kept.iter().map(|r| r.iterations).sum::<usize>().max(1) as f64,
+            if plan.refitted {
+                format!(
+                    "; base refitted ({})",
+                    plan.notes
+                        .iter()
+                        .filter(|n| n.starts_with("the base was refitted"))
+                        .map(|n| n.trim_start_matches("the base was refitted to the draws of "))
+                        .collect::<Vec<_>>()
+                        .join("; then ")
+                )
+            } else {
+                String::new()
+            },
             if plan.new_modes > 0 {
                 format!("; {} new modes", plan.new_modes)
             } else {
@@ -465,7 +481,7 @@ pub fn kiln_run(
 
 /// Iteration counts that spend `budget` evaluations in Kiln's default proportions (a third in
 /// warm-up), measured on one pilot run (seed [`PILOT_SEED`], never scored). The scored runs get
-/// 15 % more kept draws than that and stop at the chunk where the budget ends.
+/// room for ten times the pilot's kept draws and stop at the chunk where the budget ends.
 #[derive(Clone, Copy, Debug, Serialize)]
 pub struct KilnCounts {
     pub warmup: usize,
@@ -487,7 +503,9 @@ pub fn kiln_counts(prep: &Prepared, budget: u64) -> Result<KilnCounts, KilnError
         (pilot.evaluations - pilot.warmup_evaluations) as f64 / (chains * pilot.kept.max(1) as f64);
     let warmup = ((b / 3.0 / (chains * cw.max(1.0))) as usize).max(20);
     let left = (b - warmup as f64 * chains * cw).max(0.0);
-    let draws = ((1.15 * left / (chains * cs.max(1.0))).ceil() as usize).max(20);
+    // Room for ten times the pilot's kept draws: a run's cost per iteration depends on what
+    // its warm-up learned (refit, share of Hamiltonian moves), so runs stop by the budget.
+    let draws = ((10.0 * left / (chains * cs.max(1.0))).ceil() as usize).max(20);
     Ok(KilnCounts {
         warmup,
         draws,
@@ -880,32 +898,109 @@ struct Options {
     json: bool,
 }
 
-fn options(args: &[String]) -> Result<Options, KilnError> {
+/// A part of the benchmark, for development: `--targets a,b`, `--methods kiln,ais`,
+/// `--budgets 2e4,2e5`, `--seeds N`, `--no-speed`. A partial run prints and never writes files.
+#[derive(Clone, Debug, Default)]
+pub struct Part {
+    pub targets: Option<Vec<String>>,
+    pub methods: Option<Vec<Method>>,
+    pub budgets: Option<Vec<u64>>,
+    pub seeds: Option<u64>,
+    pub no_speed: bool,
+}
+
+impl Part {
+    fn is_whole(&self) -> bool {
+        self.targets.is_none()
+            && self.methods.is_none()
+            && self.budgets.is_none()
+            && self.seeds.is_none()
+            && !self.no_speed
+    }
+}
+
+const USAGE: &str = "kiln bench [--quick] [--json] [--targets a,b] [--methods kiln,ais,pt,is,nuts] [--budgets 2e4,2e5] [--seeds N] [--no-speed]";
+
+fn options(args: &[String]) -> Result<(Options, Part), KilnError> {
     let mut o = Options {
         quick: false,
         json: false,
     };
-    for a in args {
+    let mut part = Part::default();
+    let mut it = args.iter();
+    let bad = |what: String| KilnError::usage(what).with_hint(USAGE);
+    while let Some(a) = it.next() {
+        let mut value = |name: &str| {
+            it.next()
+                .cloned()
+                .ok_or_else(|| bad(format!("`{name}` needs a value")))
+        };
         match a.as_str() {
             "--quick" => o.quick = true,
             "--json" => o.json = true,
-            other => {
-                return Err(
-                    KilnError::usage(format!("unknown option `{other}` of `kiln bench`"))
-                        .with_hint("kiln bench [--quick] [--json]"),
-                )
+            "--no-speed" => part.no_speed = true,
+            "--targets" => {
+                let v = value("--targets")?;
+                let names: Vec<String> = v.split(',').map(|s| s.trim().to_string()).collect();
+                let known: Vec<&str> = targets().iter().map(|t| t.name).collect();
+                if let Some(n) = names.iter().find(|n| !known.contains(&n.as_str())) {
+                    return Err(bad(format!(
+                        "unknown benchmark target `{n}`; the targets are {}",
+                        known.join(", ")
+                    )));
+                }
+                part.targets = Some(names);
             }
+            "--methods" => {
+                let v = value("--methods")?;
+                let mut ms = Vec::new();
+                for n in v.split(',') {
+                    let m = Method::ALL
+                        .iter()
+                        .find(|m| m.name() == n.trim())
+                        .ok_or_else(|| bad(format!("unknown method `{n}`")))?;
+                    ms.push(*m);
+                }
+                part.methods = Some(ms);
+            }
+            "--budgets" => {
+                let v = value("--budgets")?;
+                let mut bs = Vec::new();
+                for n in v.split(',') {
+                    let b: f64 = n
+                        .trim()
+                        .parse()
+                        .map_err(|_| bad(format!("budget `{n}` is not a number")))?;
+                    if !(1000.0..=1e9).contains(&b) {
+                        return Err(bad(format!("budget `{n}` must be between 1e3 and 1e9")));
+                    }
+                    bs.push(b as u64);
+                }
+                part.budgets = Some(bs);
+            }
+            "--seeds" => {
+                let v = value("--seeds")?;
+                let n: u64 = v
+                    .parse()
+                    .map_err(|_| bad(format!("`--seeds {v}` is not a count")))?;
+                if n == 0 || n > 1000 {
+                    return Err(bad("`--seeds` must be between 1 and 1000".into()));
+                }
+                part.seeds = Some(n);
+            }
+            other => return Err(bad(format!("unknown option `{other}` of `kiln bench`"))),
         }
     }
-    Ok(o)
+    Ok((o, part))
 }
 
 /// `kiln bench [--quick] [--json]`: runs the benchmark; the full run writes BENCHMARKS.md,
 /// BENCHMARKS.csv and bench/plots/*.svg in the current directory (the repository root).
 pub fn command(args: &[String]) -> Result<String, KilnError> {
-    let o = options(args)?;
-    let report = run(o.quick)?;
-    if !o.quick {
+    let (o, part) = options(args)?;
+    let whole = part.is_whole();
+    let report = run_part(o.quick, &part)?;
+    if !o.quick && whole {
         write_files(&report)?;
     }
     if o.json {
@@ -918,25 +1013,40 @@ pub fn command(args: &[String]) -> Result<String, KilnError> {
 
 /// Runs the whole benchmark (progress on standard error).
 pub fn run(quick: bool) -> Result<Report, KilnError> {
+    run_part(quick, &Part::default())
+}
+
+/// Runs a part of the benchmark (see [`Part`]).
+pub fn run_part(quick: bool, part: &Part) -> Result<Report, KilnError> {
     let start = Instant::now();
-    let budgets: Vec<u64> = if quick {
-        QUICK_BUDGETS.to_vec()
-    } else {
-        FULL_BUDGETS.to_vec()
+    let budgets: Vec<u64> = match &part.budgets {
+        Some(b) => b.clone(),
+        None if quick => QUICK_BUDGETS.to_vec(),
+        None => FULL_BUDGETS.to_vec(),
     };
-    let seeds = if quick { QUICK_SEEDS } else { FULL_SEEDS };
+    let seeds = part
+        .seeds
+        .unwrap_or(if quick { QUICK_SEEDS } else { FULL_SEEDS });
+    let methods: Vec<Method> = part.methods.clone().unwrap_or(Method::ALL.to_vec());
     let threads = std::thread::available_parallelism().map_or(1, |n| n.get());
 
     // Engine speed first, alone on the machine.
     let min_ms = if quick { 60.0 } else { 250.0 };
     let load_start = load_average();
     eprintln!("kiln bench: engine speed (native)…");
-    let native = native_speed(min_ms);
-    eprintln!("kiln bench: engine speed (WebAssembly under Node)…");
-    let (wasm, wasm_note) = wasm_speed(min_ms);
+    let (native, (wasm, wasm_note)) = if part.no_speed {
+        (Vec::new(), (None, "not measured (--no-speed)".to_string()))
+    } else {
+        let native = native_speed(min_ms);
+        eprintln!("kiln bench: engine speed (WebAssembly under Node)…");
+        (native, wasm_speed(min_ms))
+    };
 
     // Mode search once per target (seed 1), shared by every method.
-    let targets = targets();
+    let mut targets = targets();
+    if let Some(names) = &part.targets {
+        targets.retain(|t| names.iter().any(|n| n == t.name));
+    }
     let mut prepared = Vec::new();
     let mut search_seconds = Vec::new();
     for t in &targets {
@@ -952,11 +1062,15 @@ pub fn run(quick: bool) -> Result<Report, KilnError> {
     }
 
     // Pilots: Kiln's iteration counts for each target and budget.
-    let pilot_jobs: Vec<(usize, u64)> = budgets
-        .iter()
-        .rev()
-        .flat_map(|&b| (0..targets.len()).map(move |t| (t, b)))
-        .collect();
+    let pilot_jobs: Vec<(usize, u64)> = if methods.contains(&Method::Kiln) {
+        budgets
+            .iter()
+            .rev()
+            .flat_map(|&b| (0..targets.len()).map(move |t| (t, b)))
+            .collect()
+    } else {
+        Vec::new()
+    };
     let pilots = pool(
         pilot_jobs.len(),
         threads,
@@ -981,7 +1095,7 @@ pub fn run(quick: bool) -> Result<Report, KilnError> {
     for &b in budgets.iter().rev() {
         for (t, target) in targets.iter().enumerate() {
             let _ = target;
-            for m in Method::ALL {
+            for &m in &methods {
                 for seed in 1..=seeds {
                     jobs.push(Job {
                         target: t,
@@ -1021,6 +1135,9 @@ pub fn run(quick: bool) -> Result<Report, KilnError> {
                 r.evaluations,
                 r.seconds
             );
+            if part.methods.is_some() && j.method == Method::Kiln {
+                eprintln!("    {}", r.tuning);
+            }
         },
     );
 

@@ -83,6 +83,11 @@ impl Gaussian {
         })
     }
 
+    /// The log of the density's normalising constant (the log density at the mean).
+    pub fn log_norm(&self) -> f64 {
+        self.log_norm
+    }
+
     /// Solves L y = x − mean into `y`; returns |y|².
     fn whiten(&self, x: &[f64], y: &mut [f64]) -> f64 {
         let d = self.dim;

@@ -26,6 +26,7 @@ pub mod approx;
 pub mod baselines;
 pub mod bench;
 pub mod check;
+pub mod control;
 pub mod estimates;
 pub mod hmc;
 pub mod modes;

@@ -309,6 +309,11 @@ pub struct RunOutcome {
     pub settings: RunSettings,
     pub log_z: f64,
     pub log_z_se: f64,
+    /// The method note's estimator without control variates.
+    pub log_z_plain: f64,
+    pub log_z_plain_se: f64,
+    /// What the control variates did (see `control`).
+    pub control_variates: Option<crate::estimates::ControlSummary>,
     pub laplace_log_z: f64,
     pub is_log_z: f64,
     pub is_log_z_se: f64,
@@ -441,6 +446,9 @@ pub fn finish_run(
     let Estimates {
         log_z,
         log_z_se,
+        log_z_plain,
+        log_z_plain_se,
+        control_variates,
         is_log_z,
         is_log_z_se,
         modes,
@@ -459,6 +467,9 @@ pub fn finish_run(
         settings,
         log_z,
         log_z_se,
+        log_z_plain,
+        log_z_plain_se,
+        control_variates,
         laplace_log_z,
         is_log_z,
         is_log_z_se,

@@ -1,16 +1,27 @@
-//! Warm-up only: refit the base q to weighted draws when the Laplace base is poor.
+//! Warm-up only: candidate refits of the base q to weighted draws of the target.
 //!
-//! Owns: a weighted EM fit of a Gaussian mixture (Dempster, Laird & Rubin 1977, "Maximum
-//! likelihood from incomplete data via the EM algorithm", JRSS B 39, 1), seeded at the known
-//! modes and, for the remaining components, by weighted k-means++ picks (Arthur & Vassilvitskii
-//! 2007). The fitted components become Student-t components with [`NU`] degrees of freedom and
-//! the fitted covariance as scale matrix (so their covariance is inflated by ν/(ν − 2)), which
-//! keeps q's tails heavier than the target's for light- and moderately heavy-tailed targets:
-//! where q is much lighter than the target, p(β=1|x) grows like |Δ| and the log Z estimate's
-//! variance can become infinite. No broad "defensive" component is added: where the target is
-//! nearly zero over most of a box (sharp peaks), its mass there makes p(β=0|x) ≈ Δ large and the
-//! variance of log Z much worse.
-//! Must not: decide when to refit (the sampler does), or touch log ζ.
+//! Owns three ways to fit a mixture to weighted draws (weights: each draw's p(β=1|x), so that
+//! the weighted draws stand for the target):
+//! - [`reweight`]: the Laplace components kept as they are, their weights re-estimated from the
+//!   share of target weight each mode is responsible for;
+//! - [`per_mode`]: each draw assigned to the mode whose Laplace component is most responsible
+//!   for it, then, mode by mode, a mixture of `J` normal (or Student-t) components fitted by
+//!   weighted EM (Dempster, Laird & Rubin 1977, "Maximum likelihood from incomplete data via
+//!   the EM algorithm", JRSS B 39, 1), seeded by splitting the mode's covariance along its
+//!   principal axis. A mode with too few effective draws for `J` components gets fewer, and
+//!   one with too few for one keeps its Laplace component. This captures skewed or flattened
+//!   modes that one Gaussian per mode describes poorly;
+//! - [`refit`]: one weighted EM over all draws, seeded at the known modes and, for the
+//!   remaining components, by weighted k-means++ picks (Arthur & Vassilvitskii 2007), turned
+//!   into Student-t components with [`NU`] degrees of freedom and the fitted covariance as
+//!   scale matrix. This covers targets that are not a set of separated bumps (ridges, shells).
+//!
+//! Heavier tails than the target's keep the log Z estimate's variance finite (where q is much
+//! lighter than the target, p(β=1|x) grows like |Δ|); normal components suit light-tailed
+//! modes better. Which candidate is used is decided by the sampler from held-out draws.
+//! No broad "defensive" component is added: where the target is nearly zero over most of a box
+//! (sharp peaks), its mass there makes p(β=0|x) ≈ Δ large and the variance of log Z much worse.
+//! Must not: decide when to refit or which candidate wins (the sampler does), or touch log ζ.
 
 use crate::gaussian::{Gaussian, Mixture};
 use crate::maths::{exp, ln, log_sum_exp};
@@ -121,7 +132,7 @@ pub fn refit(
     let mut resp = vec![0.0; n * k];
     let mut scratch = vec![0.0; d];
     let mut last_ll = f64::NEG_INFINITY;
-    for _iter in 0..100 {
+    for _iter in 0..EM_ITERATIONS {
         // E step.
         let comps: Vec<Option<Gaussian>> = (0..k)
             .map(|c| Gaussian::from_flat(means[c].clone(), &covs[c], f64::INFINITY))
@@ -215,6 +226,441 @@ pub fn refit(
         return None;
     }
     Some(Mixture::new(comps, &ws))
+}
+
+/// Each draw's mode: the index of the Laplace component most responsible for it.
+pub fn assign_modes(points: &[Vec<f64>], laplace: &Mixture) -> Vec<usize> {
+    let k = laplace.components.len();
+    let mut scratch = laplace.scratch();
+    let mut r = vec![0.0; k];
+    points
+        .iter()
+        .map(|p| {
+            if k == 1 {
+                return 0;
+            }
+            laplace.responsibilities(p, &mut r, &mut scratch);
+            let mut best = 0;
+            for c in 1..k {
+                if r[c] > r[best] {
+                    best = c;
+                }
+            }
+            best
+        })
+        .collect()
+}
+
+/// Mode weights from the target weight each mode holds, each at least [`WEIGHT_FLOOR`] of its
+/// Laplace weight (a mode the warm-up draws missed keeps a share of the base, so chains can
+/// still reach it); not normalised.
+fn mode_weights(w: &[f64], mode_of: &[usize], laplace: &Mixture) -> Vec<f64> {
+    let k = laplace.components.len();
+    let mut held = vec![0.0; k];
+    for (wi, &m) in w.iter().zip(mode_of) {
+        held[m] += wi;
+    }
+    let total: f64 = held.iter().sum();
+    let lw = laplace.weights();
+    (0..k)
+        .map(|c| (held[c] / total).max(WEIGHT_FLOOR * lw[c]))
+        .collect()
+}
+
+/// One fitted component of a mode: (share within the mode, mean, covariance row-major).
+type Part = (f64, Vec<f64>, Vec<f64>);
+
+/// Most EM iterations of a per-mode fit.
+pub const EM_ITERATIONS: usize = 40;
+/// Share of its Laplace weight a mode keeps at least in a refitted base.
+pub const WEIGHT_FLOOR: f64 = 0.05;
+/// Effective draws needed per free parameter of a fitted component.
+pub const DRAWS_PER_PARAMETER: f64 = 5.0;
+
+/// The Laplace components with their weights re-estimated from the draws.
+pub fn reweight(w: &[f64], mode_of: &[usize], laplace: &Mixture) -> Option<Mixture> {
+    let total: f64 = w.iter().sum();
+    if !(total > 0.0) || laplace.components.is_empty() {
+        return None;
+    }
+    let ws = mode_weights(w, mode_of, laplace);
+    Some(Mixture::new(laplace.components.clone(), &ws))
+}
+
+/// Degrees of freedom a per-mode fit chooses from (∞: normal components).
+pub const NU_GRID: [f64; 5] = [4.0, 7.0, 15.0, 30.0, f64::INFINITY];
+/// Most components per mode.
+pub const MAX_PER_MODE: usize = 3;
+
+/// The shape chosen for one mode: `components` = 0 keeps its Laplace component; otherwise that
+/// many components fitted by EM, as Student-t components with ν = `nu` (∞: normal) and
+/// covariance-matched scale cov·(ν − 2)/ν.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct ModeShape {
+    pub components: usize,
+    pub nu: f64,
+}
+
+impl ModeShape {
+    pub const LAPLACE: ModeShape = ModeShape {
+        components: 0,
+        nu: f64::INFINITY,
+    };
+}
+
+/// Draws grouped by mode: indices and weights of each mode's draws.
+fn members(w: &[f64], mode_of: &[usize], modes: usize) -> Vec<Vec<usize>> {
+    let mut out: Vec<Vec<usize>> = vec![Vec::new(); modes];
+    for (i, &m) in mode_of.iter().enumerate() {
+        if w[i] > 0.0 && m < modes {
+            out[m].push(i);
+        }
+    }
+    out
+}
+
+fn effective(idx: &[usize], w: &[f64]) -> f64 {
+    let sw: f64 = idx.iter().map(|&i| w[i]).sum();
+    let sw2: f64 = idx.iter().map(|&i| w[i] * w[i]).sum();
+    if sw2 > 0.0 {
+        sw * sw / sw2
+    } else {
+        0.0
+    }
+}
+
+/// Components a mode's effective draws can support in `d` dimensions.
+fn supported(n_eff: f64, d: usize) -> usize {
+    let params = (d + d * (d + 1) / 2) as f64;
+    ((n_eff / (DRAWS_PER_PARAMETER * params)).floor() as usize).min(MAX_PER_MODE)
+}
+
+/// One mode's components under a shape, fitted to its draws; `None` if the fit fails.
+fn fit_mode(pts: &[&[f64]], ws: &[f64], shape: ModeShape) -> Option<Vec<(f64, Gaussian)>> {
+    let parts = em_local(pts, ws, shape.components)?;
+    as_components(&parts, shape.nu)
+}
+
+fn as_components(parts: &[Part], nu: f64) -> Option<Vec<(f64, Gaussian)>> {
+    parts
+        .iter()
+        .map(|(share, mean, cov)| {
+            let scale: Vec<f64> = if nu.is_finite() {
+                cov.iter().map(|v| v * (nu - 2.0) / nu).collect()
+            } else {
+                cov.clone()
+            };
+            Gaussian::from_flat(mean.clone(), &scale, nu).map(|g| (*share, g))
+        })
+        .collect()
+}
+
+/// Weighted mean log density of points under a normalised set of components.
+fn mean_log_density(set: &[(f64, Gaussian)], pts: &[&[f64]], ws: &[f64]) -> f64 {
+    let d = pts.first().map_or(0, |p| p.len());
+    let mut scratch = vec![0.0; d];
+    let mut terms = vec![0.0; set.len()];
+    let (mut ll, mut tw) = (0.0, 0.0);
+    for (p, wi) in pts.iter().zip(ws) {
+        for (c, (share, g)) in set.iter().enumerate() {
+            terms[c] = ln(*share) + g.log_density(p, &mut scratch);
+        }
+        ll += wi * log_sum_exp(&terms);
+        tw += wi;
+    }
+    ll / tw
+}
+
+/// Chooses each mode's shape by the likelihood of held-out draws: every number of components
+/// its training draws support (0 = its Laplace component) and every ν of [`NU_GRID`], fitted to
+/// the training draws, scored by the weighted mean log density of the mode's held-out draws.
+/// A mode with too few held-out draws to judge keeps its Laplace component.
+#[allow(clippy::too_many_arguments)]
+pub fn choose_shapes(
+    train: &[Vec<f64>],
+    train_w: &[f64],
+    train_mode: &[usize],
+    valid: &[Vec<f64>],
+    valid_w: &[f64],
+    valid_mode: &[usize],
+    laplace: &Mixture,
+) -> Vec<ModeShape> {
+    let k = laplace.components.len();
+    let d = laplace.dim;
+    let tm = members(train_w, train_mode, k);
+    let vm = members(valid_w, valid_mode, k);
+    (0..k)
+        .map(|m| {
+            let fits = supported(effective(&tm[m], train_w), d);
+            if fits == 0 || effective(&vm[m], valid_w) < 10.0 {
+                return ModeShape::LAPLACE;
+            }
+            let tp: Vec<&[f64]> = tm[m].iter().map(|&i| train[i].as_slice()).collect();
+            let tw: Vec<f64> = tm[m].iter().map(|&i| train_w[i]).collect();
+            let vp: Vec<&[f64]> = vm[m].iter().map(|&i| valid[i].as_slice()).collect();
+            let vw: Vec<f64> = vm[m].iter().map(|&i| valid_w[i]).collect();
+            let lap = vec![(1.0, laplace.components[m].clone())];
+            let mut best = (mean_log_density(&lap, &vp, &vw), ModeShape::LAPLACE);
+            for j in 1..=fits {
+                let Some(parts) = em_local(&tp, &tw, j) else {
+                    continue;
+                };
+                for nu in NU_GRID {
+                    let Some(set) = as_components(&parts, nu) else {
+                        continue;
+                    };
+                    let score = mean_log_density(&set, &vp, &vw);
+                    if score.is_finite() && !(score <= best.0) {
+                        best = (score, ModeShape { components: j, nu });
+                    }
+                }
+            }
+            best.1
+        })
+        .collect()
+}
+
+/// Per mode, the components of its shape fitted by weighted EM to the draws the mode is
+/// responsible for (a mode whose fit fails, or whose draws are too few for its shape, keeps
+/// its Laplace component); mode weights from the draws.
+pub fn per_mode(
+    points: &[Vec<f64>],
+    w: &[f64],
+    mode_of: &[usize],
+    laplace: &Mixture,
+    shapes: &[ModeShape],
+) -> Option<Mixture> {
+    let total: f64 = w.iter().sum();
+    if !(total > 0.0) || points.is_empty() || laplace.components.is_empty() {
+        return None;
+    }
+    let d = laplace.dim;
+    let k = laplace.components.len();
+    let mode_w = mode_weights(w, mode_of, laplace);
+    let groups = members(w, mode_of, k);
+    let mut comps = Vec::new();
+    let mut weights = Vec::new();
+    for m in 0..k {
+        let shape = shapes.get(m).copied().unwrap_or(ModeShape::LAPLACE);
+        let idx = &groups[m];
+        let fitted = if shape.components == 0 || supported(effective(idx, w), d) == 0 {
+            None
+        } else {
+            let pts: Vec<&[f64]> = idx.iter().map(|&i| points[i].as_slice()).collect();
+            let ws: Vec<f64> = idx.iter().map(|&i| w[i]).collect();
+            // Fewer components when a fit leaves one of them without enough draws.
+            (1..=shape.components).rev().find_map(|j| {
+                fit_mode(
+                    &pts,
+                    &ws,
+                    ModeShape {
+                        components: j,
+                        ..shape
+                    },
+                )
+            })
+        };
+        match fitted {
+            Some(set) => {
+                for (share, g) in set {
+                    comps.push(g);
+                    weights.push(mode_w[m] * share);
+                }
+            }
+            None => {
+                comps.push(laplace.components[m].clone());
+                weights.push(mode_w[m]);
+            }
+        }
+    }
+    if comps.is_empty() {
+        return None;
+    }
+    Some(Mixture::new(comps, &weights))
+}
+
+/// A `j`-component normal mixture fitted by weighted EM to one mode's draws: (share, mean,
+/// covariance) per component; `None` if the draws are degenerate.
+fn em_local(points: &[&[f64]], w: &[f64], j: usize) -> Option<Vec<Part>> {
+    let n = points.len();
+    let d = points.first()?.len();
+    let total: f64 = w.iter().sum();
+    if !(total > 0.0) {
+        return None;
+    }
+    let (mean, cov) = moments(points, w, None);
+    let ridge: Vec<f64> = (0..d).map(|i| 1e-9 * cov[i * d + i].max(1e-300)).collect();
+    if j <= 1 {
+        let mut c = cov;
+        for i in 0..d {
+            c[i * d + i] += ridge[i];
+        }
+        return Some(vec![(1.0, mean, c)]);
+    }
+    // Seeds: along the principal axis of the mode's covariance, at ±(0.5…1) sd.
+    let (axis, var) = principal_axis(&cov, d);
+    let sd = crate::maths::sqrt(var.max(0.0));
+    let mut means = Vec::with_capacity(j);
+    for c in 0..j {
+        let t = if j == 1 {
+            0.0
+        } else {
+            -1.0 + 2.0 * c as f64 / (j - 1) as f64
+        };
+        means.push(
+            (0..d)
+                .map(|i| mean[i] + t * sd * axis[i])
+                .collect::<Vec<f64>>(),
+        );
+    }
+    // Start each component with the covariance less the spread of the seeds along the axis.
+    let shrink = 0.5;
+    let mut covs: Vec<Vec<f64>> = (0..j)
+        .map(|_| {
+            (0..d * d)
+                .map(|ij| {
+                    let (a, b) = (ij / d, ij % d);
+                    cov[ij] - shrink * var * axis[a] * axis[b]
+                })
+                .collect()
+        })
+        .collect();
+    let mut shares = vec![1.0 / j as f64; j];
+    let mut resp = vec![0.0; n * j];
+    let mut scratch = vec![0.0; d];
+    let mut terms = vec![0.0; j];
+    let mut last = f64::NEG_INFINITY;
+    for _ in 0..EM_ITERATIONS {
+        let comps: Vec<Option<Gaussian>> = (0..j)
+            .map(|c| Gaussian::from_flat(means[c].clone(), &covs[c], f64::INFINITY))
+            .collect();
+        if comps.iter().any(|c| c.is_none()) {
+            return None;
+        }
+        let mut ll = 0.0;
+        for i in 0..n {
+            for c in 0..j {
+                terms[c] = match &comps[c] {
+                    Some(g) if shares[c] > 0.0 => {
+                        ln(shares[c]) + g.log_density(points[i], &mut scratch)
+                    }
+                    _ => f64::NEG_INFINITY,
+                };
+            }
+            let t = log_sum_exp(&terms);
+            for c in 0..j {
+                resp[i * j + c] = if t.is_finite() {
+                    exp(terms[c] - t)
+                } else {
+                    0.0
+                };
+            }
+            if t.is_finite() {
+                ll += w[i] * t;
+            }
+        }
+        for c in 0..j {
+            let rw: Vec<f64> = (0..n).map(|i| w[i] * resp[i * j + c]).collect();
+            let wc: f64 = rw.iter().sum();
+            let wc2: f64 = rw.iter().map(|x| x * x).sum();
+            let n_eff = if wc2 > 0.0 { wc * wc / wc2 } else { 0.0 };
+            // A component left with too few draws to pin down its covariance ends the fit.
+            if n_eff < (d + 1) as f64 * 2.0 {
+                return None;
+            }
+            shares[c] = wc / total;
+            let (m, mut cv) = moments(points, &rw, None);
+            for a in 0..d {
+                cv[a * d + a] += ridge[a];
+            }
+            means[c] = m;
+            covs[c] = cv;
+        }
+        if (ll - last).abs() <= 1e-7 * (1.0 + ll.abs()) {
+            break;
+        }
+        last = ll;
+    }
+    Some(
+        (0..j)
+            .map(|c| (shares[c], means[c].clone(), covs[c].clone()))
+            .collect(),
+    )
+}
+
+/// Weighted mean and covariance (row-major) of points; `mean` given or computed.
+fn moments(points: &[&[f64]], w: &[f64], mean: Option<&[f64]>) -> (Vec<f64>, Vec<f64>) {
+    let d = points[0].len();
+    let total: f64 = w.iter().sum();
+    let m: Vec<f64> = match mean {
+        Some(m) => m.to_vec(),
+        None => {
+            let mut m = vec![0.0; d];
+            for (p, wi) in points.iter().zip(w) {
+                for i in 0..d {
+                    m[i] += wi * p[i];
+                }
+            }
+            m.iter().map(|v| v / total).collect()
+        }
+    };
+    let mut cov = vec![0.0; d * d];
+    let mut dev = vec![0.0; d];
+    for (p, wi) in points.iter().zip(w) {
+        if *wi == 0.0 {
+            continue;
+        }
+        for i in 0..d {
+            dev[i] = p[i] - m[i];
+        }
+        for a in 0..d {
+            for b in 0..=a {
+                cov[a * d + b] += wi * dev[a] * dev[b];
+            }
+        }
+    }
+    for a in 0..d {
+        for b in 0..=a {
+            let v = cov[a * d + b] / total;
+            cov[a * d + b] = v;
+            cov[b * d + a] = v;
+        }
+    }
+    (m, cov)
+}
+
+/// The leading eigenvector (unit length) and eigenvalue of a symmetric matrix, by power
+/// iteration from the direction of largest diagonal entry.
+fn principal_axis(a: &[f64], d: usize) -> (Vec<f64>, f64) {
+    let mut v = vec![0.0; d];
+    let start = (0..d)
+        .max_by(|&i, &j| a[i * d + i].total_cmp(&a[j * d + j]))
+        .unwrap_or(0);
+    // Every coordinate gets a share, so that a start orthogonal to the axis cannot happen.
+    for i in 0..d {
+        v[i] = if i == start { 1.0 } else { 0.1 };
+    }
+    let mut lambda = 0.0;
+    for _ in 0..200 {
+        let mut nv = vec![0.0; d];
+        for i in 0..d {
+            for k in 0..d {
+                nv[i] += a[i * d + k] * v[k];
+            }
+        }
+        let norm = crate::maths::sqrt(nv.iter().map(|x| x * x).sum::<f64>());
+        if !(norm > 0.0) {
+            break;
+        }
+        let next: Vec<f64> = nv.iter().map(|x| x / norm).collect();
+        let change: f64 = next.iter().zip(&v).map(|(a, b)| (a - b).abs()).sum();
+        v = next;
+        lambda = norm;
+        if change < 1e-12 {
+            break;
+        }
+    }
+    (v, lambda)
 }
 
 #[cfg(test)]

@@ -244,6 +244,18 @@ pub fn run_text(r: &crate::pipeline::RunOutcome) -> String {
         s.seed, s.chains, s.warmup, s.draws, s.method, s.integrator, r.gradient_evaluations
     );
     let _ = writeln!(o, "\nlog Z = {}", pm(r.log_z, r.log_z_se));
+    if let Some(cv) = &r.control_variates {
+        if cv.used {
+            let _ = writeln!(
+                o,
+                "  without control variates {}; {}",
+                pm(r.log_z_plain, r.log_z_plain_se),
+                cv.note
+            );
+        } else {
+            let _ = writeln!(o, "  control variates {}", cv.note);
+        }
+    }
     let mut rows = vec![vec![
         "check".to_string(),
         "log Z".to_string(),
@@ -337,10 +349,11 @@ pub fn run_text(r: &crate::pipeline::RunOutcome) -> String {
     );
     let _ = writeln!(
         o,
-        "  β round trips per chain {:?}, time near β = 1: {:.1}%, independence moves accepted {:.1}%",
+        "  β round trips per chain {:?}, time near β = 1: {:.1}%, independence moves accepted {:.1}%, Hamiltonian moves in {:.1}% of iterations",
         d.round_trips,
         100.0 * d.share_near_beta_one,
-        100.0 * d.independence_acceptance
+        100.0 * d.independence_acceptance,
+        100.0 * d.hamiltonian_share
     );
     let _ = writeln!(
         o,

@@ -222,6 +222,14 @@ impl Tempered {
         (if d.is_nan() { f64::INFINITY } else { d }, e)
     }
 
+    /// Δ and log q (no gradient).
+    pub fn delta_log_q(&mut self, z: &[f64]) -> (f64, f64) {
+        let e = self.target.energy(z);
+        let log_q = self.base.q.log_density(z, &mut self.scratch);
+        let d = e + self.base.log_zeta + log_q;
+        (if d.is_nan() { f64::INFINITY } else { d }, log_q)
+    }
+
     pub fn draw_base(&mut self, rng: &mut Stream, out: &mut [f64]) {
         let q = self.base.q.clone();
         q.sample(rng, out, &mut self.scratch);

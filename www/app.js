@@ -1181,6 +1181,7 @@
     ['divergences', 'Divergent transitions', function (v) { return [fmtInt(v), v > 0 ? 'the integrator broke down in places; results near those regions are suspect' : null, v > 0]; }],
     ['max_depth_hits', 'Trajectories stopped at the tree-depth limit', function (v) { return [fmtInt(v), null, v > 0]; }],
     ['independence_acceptance', 'Acceptance of independence moves from the base', function (v) { return [fmtPct(v)]; }],
+    ['hamiltonian_share', 'Share of iterations with a Hamiltonian move', function (v) { return [fmtPct(v), 'the others only drew from the base and redrew β']; }],
     ['round_trips', 'Round trips between β = 0 and β = 1, per chain', function (v) { const a = Array.isArray(v) ? v : [v]; return [a.map(fmtInt).join(', '), a.some(function (x) { return x === 0; }) ? 'a chain never made a round trip' : null, a.some(function (x) { return x === 0; })]; }],
     ['share_near_beta_one', 'Share of time near β = 1', function (v) { return [fmtPct(v)]; }],
     ['mean_p1', 'Mean probability of β = 1 given the position', function (v) { return [fmtFixed(v, 3)]; }],
