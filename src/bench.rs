@@ -481,7 +481,8 @@ pub fn kiln_run(
 
 /// Iteration counts that spend `budget` evaluations in Kiln's default proportions (a third in
 /// warm-up), measured on one pilot run (seed [`PILOT_SEED`], never scored). The scored runs get
-/// room for ten times the pilot's kept draws and stop at the chunk where the budget ends.
+/// room for as many kept iterations as the budget could buy and stop at the chunk where the
+/// budget ends.
 #[derive(Clone, Copy, Debug, Serialize)]
 pub struct KilnCounts {
     pub warmup: usize,
@@ -503,9 +504,10 @@ pub fn kiln_counts(prep: &Prepared, budget: u64) -> Result<KilnCounts, KilnError
         (pilot.evaluations - pilot.warmup_evaluations) as f64 / (chains * pilot.kept.max(1) as f64);
     let warmup = ((b / 3.0 / (chains * cw.max(1.0))) as usize).max(20);
     let left = (b - warmup as f64 * chains * cw).max(0.0);
-    // Room for ten times the pilot's kept draws: a run's cost per iteration depends on what
-    // its warm-up learned (refit, share of Hamiltonian moves), so runs stop by the budget.
-    let draws = ((10.0 * left / (chains * cs.max(1.0))).ceil() as usize).max(20);
+    // Room for as many kept iterations as the rest of the budget could buy at one evaluation
+    // each (the cheapest iteration): a run's cost per iteration depends on what its own warm-up
+    // chose (base, share of Hamiltonian moves), so runs stop by the budget.
+    let draws = ((left / chains).ceil() as usize).max(20);
     Ok(KilnCounts {
         warmup,
         draws,
@@ -1490,7 +1492,7 @@ const REST_OF_HEADER: &str = "\
 - **Seeds.** Each method runs once per seed; log Z RMSE is the root mean square of (estimate − reference) over the seeds. References come from outside Kiln: exact identities, scipy quadrature (scripts and versions in `tests/reference/`), and published values where they exist (quoted beside the scipy value, which agrees with them to their two decimals and is used because it is more precise).
 - **Mode masses.** Every method's weighted draws are assigned to modes by one rule per target (nearest peak, half-plane, sign pattern of y = H x, order of the two means), against masses that are exact by symmetry or by construction.
 - **Wall time.** Every run is single-threaded (Kiln's chains run one after another, as single-chain workers of one run that exchange records, which gives the numbers `kiln run` gives); two runs share the machine's two cores.
-- **Kiln** runs as `kiln run` does (4 chains, alternating method, NUTS, independence moves, bias learning, refit when the base is poor), a third of the budget in warm-up as in its defaults (1000 warm-up : 2000 kept). One pilot run per target and budget (seed 1000001, not scored, not counted) converts the budget into iteration counts; a scored run gets 15 % more kept draws and stops at the end of the chunk of kept draws (a tenth of them) after which the next would pass the budget.
+- **Kiln** runs as `kiln run` does (4 chains, alternating method, NUTS, the defensive independence proposal, bias learning, candidate bases judged on held-out warm-up draws, the warm-up trial of mostly independence moves, control variates when they help), about a third of the budget in warm-up as in its defaults (1000 warm-up : 2000 kept). One pilot run per target and budget (seed 1000001, not scored, not counted) converts the budget into a warm-up length; a scored run has room for as many kept iterations as the rest of the budget could buy at one evaluation each (its cost per iteration depends on what its own warm-up chose) and stops at the end of the chunk of kept draws (at most 100 iterations per chain) after which the next would pass the budget. Its log Z is the one `kiln run` reports (with control variates when they are used).
 - **Targets.** With Gaussian components a mixture's Laplace base is the target itself, so every method would return log Z to round-off; the mixture and the rotated products therefore use skewed modes (each mode two overlapping Gaussians), which keep the exact identities.
 
 ### How each baseline is tuned

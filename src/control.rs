@@ -87,7 +87,7 @@ fn count(d: usize, degree: usize) -> usize {
 }
 
 /// The damping of the features: H(y) e^{−|y|²/(2 s²)} with s² = this.
-pub const DAMPING: f64 = 4.0;
+pub const DAMPING: f64 = 16.0;
 
 /// E[e^{−|y|²/(2s²)}] and E[y_i² e^{−|y|²/(2s²)}] for a standard normal (ν = ∞) or standard
 /// Student-t vector y in `d` dimensions (s² = [`DAMPING`]).
@@ -141,22 +141,8 @@ type Active = Vec<(usize, f64, Vec<f64>)>;
 fn activity(q: &Mixture, x: &[f64], logp: &mut [f64], y: &mut [f64]) -> Active {
     let d = q.dim;
     for (c, g) in q.components.iter().enumerate() {
-        let yc = &mut y[c * d..(c + 1) * d];
-        let mut q2 = 0.0;
-        for i in 0..d {
-            let mut s = x[i] - g.mean[i];
-            for j in 0..i {
-                s -= g.chol[i * d + j] * yc[j];
-            }
-            yc[i] = s / g.chol[i * d + i];
-            q2 += yc[i] * yc[i];
-        }
-        let shape = if g.nu.is_finite() {
-            -0.5 * (g.nu + d as f64) * crate::maths::ln_1p(q2 / g.nu)
-        } else {
-            -0.5 * q2
-        };
-        logp[c] = q.log_weights[c] + g.log_norm() + shape;
+        // `log_density` leaves the whitened coordinates in its scratch.
+        logp[c] = q.log_weights[c] + g.log_density(x, &mut y[c * d..(c + 1) * d]);
     }
     let top = logp.iter().copied().fold(f64::NEG_INFINITY, f64::max);
     let total: f64 = logp.iter().map(|l| exp(l - top)).sum();
@@ -463,7 +449,7 @@ mod tests {
 
     #[test]
     fn a_series_spanned_by_the_features_loses_its_noise() {
-        // z = 0.7 y e^{−y²/8} − 0.2 (y² e^{−y²/8} − E[y² e^{−y²/8}]) + small noise for a
+        // z = 0.7 y e^{−y²/32} − 0.2 (y² e^{−y²/32} − E[y² e^{−y²/32}]) + small noise for a
         // one-component normal base (the damped features): the residual keeps only the noise,
         // and the correction equals mean(z) up to that noise.
         let g = Gaussian::new(&[0.0], &[vec![1.0]]).unwrap();
@@ -474,8 +460,9 @@ mod tests {
         let z: Vec<f64> = xs
             .iter()
             .map(|x| {
-                let g = (-x[0] * x[0] / 8.0).exp();
-                0.7 * x[0] * g - 0.2 * (x[0] * x[0] * g - 0.8f64.powf(1.5)) + 0.01 * rng.normal()
+                let g = (-x[0] * x[0] / 32.0).exp();
+                0.7 * x[0] * g - 0.2 * (x[0] * x[0] * g - (16.0f64 / 17.0).powf(1.5))
+                    + 0.01 * rng.normal()
             })
             .collect();
         let pts: Vec<&[f64]> = xs.iter().map(|x| x.as_slice()).collect();
@@ -500,11 +487,12 @@ mod tests {
 
     #[test]
     fn damped_moments_match_quadrature() {
-        // 1-D: E[e^{−y²/8}] and E[y² e^{−y²/8}] for a normal are (4/5)^{1/2} and (4/5)^{3/2}
+        // 1-D: E[e^{−y²/32}] and E[y² e^{−y²/32}] for a normal are (16/17)^{1/2} and (16/17)^{3/2}
         // (closed form); for a Student-t with ν = 5, compare with a direct midpoint rule over y
         // of the t density (an independent computation).
         let (a0, a2) = damped_moments(1, f64::INFINITY);
-        assert!((a0 - 0.8f64.powf(0.5)).abs() < 1e-14 && (a2 - 0.8f64.powf(1.5)).abs() < 1e-14);
+        let r = 16.0f64 / 17.0;
+        assert!((a0 - r.powf(0.5)).abs() < 1e-14 && (a2 - r.powf(1.5)).abs() < 1e-14);
         let nu = 5.0;
         let (t0, t2) = damped_moments(1, nu);
         let c = libm::tgamma(0.5 * (nu + 1.0))
@@ -513,7 +501,7 @@ mod tests {
         let h = 1e-3;
         for i in 0..400_000 {
             let y = -200.0 + (i as f64 + 0.5) * h;
-            let f = c * (1.0 + y * y / nu).powf(-0.5 * (nu + 1.0)) * (-y * y / 8.0).exp() * h;
+            let f = c * (1.0 + y * y / nu).powf(-0.5 * (nu + 1.0)) * (-y * y / 32.0).exp() * h;
             q0 += f;
             q2 += f * y * y;
         }

@@ -9,6 +9,8 @@
 //!   (Geyer 1992, "Practical Markov chain Monte Carlo", Statistical Science 7, 473) in the
 //!   multi-chain form of Vehtari, Gelman, Simpson, Carpenter & Bürkner 2021, "Rank-normalization,
 //!   folding, and localization: an improved R-hat", Bayesian Analysis 16, 667;
+//! - the same estimate with control variates (`control`): reported as `log_z` when they cut
+//!   its variance and agree with it, always beside the plain one;
 //! - expectations, quantiles and mode masses weighted by p(β=1|x), with standard errors from
 //!   the same linearisation;
 //! - rank-normalised split R-hat and bulk ESS per unknown (Vehtari et al. 2021) on the chains;

@@ -83,11 +83,6 @@ impl Gaussian {
         })
     }
 
-    /// The log of the density's normalising constant (the log density at the mean).
-    pub fn log_norm(&self) -> f64 {
-        self.log_norm
-    }
-
     /// Solves L y = x − mean into `y`; returns |y|².
     fn whiten(&self, x: &[f64], y: &mut [f64]) -> f64 {
         let d = self.dim;
@@ -103,7 +98,8 @@ impl Gaussian {
         q
     }
 
-    /// Log density at `x`. `scratch` needs `dim` entries.
+    /// Log density at `x`. `scratch` needs `dim` entries; it is left holding the whitened
+    /// coordinates L⁻¹(x − mean).
     pub fn log_density(&self, x: &[f64], scratch: &mut [f64]) -> f64 {
         let q = self.whiten(x, scratch);
         self.log_norm + self.shape(q)

@@ -1058,7 +1058,11 @@
     const running = run && (run.status === 'running' || run.status === 'cancelled') && run.progress && Array.isArray(run.progress.running) && run.progress.running.length ? run.progress.running[run.progress.running.length - 1] : null;
     if (r) {
       val.textContent = fmtPM(r.log_z, r.log_z_se);
-      sub.textContent = '± is one standard error of the sampling (it cannot account for modes never found).';
+      const cv = r.control_variates;
+      const cvText = cv && cv.used
+        ? ' With control variates from the base: without them ' + fmtPM(r.log_z_plain, r.log_z_plain_se) + ' (' + str(cv.note) + ').'
+        : '';
+      sub.textContent = '± is one standard error of the sampling (it cannot account for modes never found).' + cvText;
     } else if (running) {
       val.classList.add('partial');
       val.textContent = fmtPM(running.log_z, running.log_z_se);
