@@ -44,6 +44,9 @@ enum Op {
     Square(u32),
     /// `a^n` for a small integer constant `n`, by repeated squaring.
     PowI(u32, i32),
+    /// `(a + m)^n` for a small integer `n` other than 0 and 1: a power of an operand shifted by
+    /// a constant, in an addition or subtraction used nowhere else.
+    ShiftPowI(u32, i8, f64),
     /// `a^c` for any other constant `c`.
     PowC(u32, f64),
     Pow(u32, u32),
@@ -124,6 +127,7 @@ impl Op {
             Op::CDiv(c, a) => Op::CDiv(c, f(a)),
             Op::Square(a) => Op::Square(f(a)),
             Op::PowI(a, n) => Op::PowI(f(a), n),
+            Op::ShiftPowI(a, n, m) => Op::ShiftPowI(f(a), n, m),
             Op::PowC(a, c) => Op::PowC(f(a), c),
             Op::Pow(a, b) => Op::Pow(f(a), f(b)),
             Op::Neg(a) => Op::Neg(f(a)),
@@ -200,6 +204,9 @@ struct Segment {
     /// The argument slots of the `LogSumExp` instructions.
     args: Vec<u32>,
     root: u32,
+    /// Whether the reverse pass may add to a constant's adjoint (an instruction reads a
+    /// constant slot); if not, those adjoints stay zero without being cleared.
+    const_adjoints: bool,
     /// One less than the length of the value, adjoint and auxiliary arrays: the number of
     /// slots rounded up to a power of two. Every slot is below it, so `slot & mask` is the slot,
     /// and indexing with it into a slice of length `mask + 1` needs no bounds check.
@@ -218,8 +225,20 @@ impl Segment {
     }
     /// Zeroes the adjoints of the inputs and constants (after `reverse`, all are then zero).
     fn clear_leaves(&self, adj: &mut [f64]) {
-        for a in adj[..self.first_code()].iter_mut() {
-            *a = 0.0;
+        self.clear_constants(adj);
+        let adj = &mut adj[..=self.mask];
+        for i in self.first_input..self.first_code() {
+            // Masked like every slot (a no-op): a few plain stores rather than a call.
+            adj[i & self.mask] = 0.0;
+        }
+    }
+    /// Zeroes the adjoints of the constants, if any instruction adds to them.
+    fn clear_constants(&self, adj: &mut [f64]) {
+        if self.const_adjoints {
+            let adj = &mut adj[..=self.mask];
+            for i in 0..self.first_input {
+                adj[i & self.mask] = 0.0;
+            }
         }
     }
     /// Fresh adjoint slots.
@@ -343,15 +362,31 @@ impl SegBuilder {
     fn finish(self, root: u32, loops: &mut [RowLoop]) -> Segment {
         let first_input = self.init.len();
         let fix = self.slot_fixer();
-        let code = self.code.iter().map(|op| op.map_slots(&fix)).collect();
-        let terms = self.terms.iter().map(|t| t.map_slots(&fix)).collect();
-        let args = self.args.iter().map(|&a| fix(a)).collect();
+        let code: Vec<Op> = self.code.iter().map(|op| op.map_slots(&fix)).collect();
+        let terms: Vec<Term> = self.terms.iter().map(|t| t.map_slots(&fix)).collect();
+        let args: Vec<u32> = self.args.iter().map(|&a| fix(a)).collect();
         for lp in loops.iter_mut() {
             for s in lp.inputs.iter_mut() {
                 *s = fix(*s);
             }
         }
         let n_slots = first_input + self.n_inputs + self.code.len();
+        let reads_const = std::cell::Cell::new(false);
+        let note = |s: u32| {
+            if (s as usize) < first_input {
+                reads_const.set(true);
+            }
+            s
+        };
+        for op in &code {
+            let _ = op.map_slots(note);
+        }
+        for t in &terms {
+            let _ = t.map_slots(note);
+        }
+        for &a in &args {
+            note(a);
+        }
         Segment {
             init: self.init,
             first_input,
@@ -360,6 +395,7 @@ impl SegBuilder {
             terms,
             args,
             root: fix(root),
+            const_adjoints: reads_const.get(),
             mask: n_slots.next_power_of_two() - 1,
         }
     }
@@ -762,6 +798,25 @@ impl Compiler<'_> {
         self.seg.lin_comb(&terms)
     }
 
+    /// `(x + m)^n` with `x + m` (or `x - m`, `m + x`) used only here and `n` a small integer
+    /// other than 0 and 1: (x, m, n).
+    fn shifted_power(&self, base: NodeId, e: NodeId) -> Option<(NodeId, f64, i8)> {
+        let n = self.constant(e).and_then(small_integer)?;
+        if n == 0 || n == 1 || !self.fusable(base) {
+            return None;
+        }
+        let (x, m) = match self.nodes[base as usize] {
+            Node::Binary(Binary::Add, x, y) => match (self.constant(x), self.constant(y)) {
+                (None, Some(m)) => (x, m),
+                (Some(m), None) => (y, m),
+                _ => return None,
+            },
+            Node::Binary(Binary::Sub, x, y) => (x, -self.constant(y)?),
+            _ => return None,
+        };
+        (self.constant(x).is_none()).then_some((x, m, n as i8))
+    }
+
     /// `a ± b` with a negation used only here as an operand, rewritten without it: returns
     /// (the other operand, the negated one, the operation that replaces the pair).
     fn negated(&self, a: NodeId, b: NodeId, op: Binary) -> Option<(NodeId, NodeId, Binary)> {
@@ -860,6 +915,11 @@ impl Compiler<'_> {
                     self.seg.unary(op, a)
                 }
             },
+            (None, Node::Binary(Binary::Pow, base, e)) if self.shifted_power(base, e).is_some() => {
+                let (x, m, n) = self.shifted_power(base, e).unwrap_or((base, 0.0, 2));
+                let x = self.emit(x);
+                self.seg.push(Op::ShiftPowI(x, n, m))
+            }
             (None, Node::Binary(Binary::LogAddExp, _, _)) if self.lse_chain(id).len() >= 3 => {
                 let args: Vec<u32> = self
                     .lse_chain(id)
@@ -995,7 +1055,30 @@ fn forward<const GRAD: bool>(
                 let x = v(a);
                 x * x
             }
-            Op::PowI(a, n) => powi_small(v(a), n),
+            Op::PowI(a, n) => {
+                let x = v(a);
+                if GRAD {
+                    // The derivative, computed beside the power rather than after it.
+                    aux[o] = match n {
+                        0 => 0.0,
+                        1 => 1.0,
+                        2 => 2.0 * x,
+                        _ => n as f64 * powi_small(x, n - 1),
+                    };
+                }
+                powi_small(x, n)
+            }
+            Op::ShiftPowI(a, n, m) => {
+                let (x, n) = (v(a) + m, n as i32);
+                if GRAD {
+                    aux[o] = if n == 2 {
+                        2.0 * x
+                    } else {
+                        n as f64 * powi_small(x, n - 1)
+                    };
+                }
+                powi_small(x, n)
+            }
             Op::PowC(a, c) => maths::pow(v(a), c),
             Op::Pow(a, b) => maths::pow(v(a), v(b)),
             Op::Neg(a) => -v(a),
@@ -1173,15 +1256,7 @@ fn reverse<'a>(
             Op::CSub(_, a) => add!(a, -g),
             Op::CDiv(_, a) => add!(a, g * (-vals[o] / v(a))),
             Op::Square(a) => add!(a, g * (2.0 * v(a))),
-            Op::PowI(a, n) => {
-                let d = match n {
-                    0 => 0.0,
-                    1 => 1.0,
-                    2 => 2.0 * v(a),
-                    _ => n as f64 * powi_small(v(a), n - 1),
-                };
-                add!(a, g * d);
-            }
+            Op::PowI(a, _) | Op::ShiftPowI(a, _, _) => add!(a, g * aux[o]),
             Op::PowC(a, c) => add!(a, g * c * maths::pow(v(a), c - 1.0)),
             Op::Pow(a, b) => {
                 let (da, db) = Binary::Pow.derivatives(v(a), v(b), vals[o]);
@@ -1374,13 +1449,15 @@ impl Evaluator {
             (&t.loops[k].inputs[..], scratch[k].grads())
         });
         let (first, mask) = (t.outer.first_input, t.outer.mask);
-        let adj = &self.adj[..=mask];
+        t.outer.clear_constants(&mut self.adj);
+        let adj = &mut self.adj[..=mask];
         for (i, g) in grad[..t.n_vars].iter_mut().enumerate() {
             // One value at a time: the reverse pass has just stored them one by one, and a
             // wider load of two such stores waits for both to reach the cache.
-            *g = adj[(first + i) & mask];
+            let s = (first + i) & mask;
+            *g = adj[s];
+            adj[s] = 0.0;
         }
-        t.outer.clear_leaves(&mut self.adj);
         self.vals[root]
     }
 }

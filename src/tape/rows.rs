@@ -6,8 +6,8 @@
 //! row-dependent cores), and the rule that decides between the two on each call: the factored
 //! form is used only when its pulled-out factors are finite (divisors also non-zero, powers of
 //! them normal numbers) and its result is finite; otherwise the body as written is evaluated.
-//! Row sums are accumulated in 16 lanes by row index (row mod 16) and the lanes added
-//! pairwise, so the order of additions is fixed, whatever the block size and on every
+//! Row sums are accumulated in 16 lanes by row index (row mod 16) and the lanes added as a
+//! fixed tree, so the order of additions is fixed, whatever the block size and on every
 //! platform.
 //! Must not: expand products or powers of sums (which would cancel catastrophically), or split
 //! a difference of a data value and an unknown; know anything outside one sum.
@@ -51,6 +51,22 @@ struct CIns {
 
 const NONE: u32 = u32::MAX;
 
+/// Where the reverse pass sends an operand's share of an instruction's adjoint.
+#[derive(Clone, Copy, Debug, PartialEq)]
+enum Dest {
+    /// Nowhere (data and constants).
+    Skip,
+    /// The operand's adjoint column, written for the first time.
+    Store(u32),
+    /// The operand's adjoint column, added to.
+    Add(u32),
+    /// A set of lanes adding up an invariant's gradient.
+    Lanes(u32),
+    /// A set of lanes adding up the adjoint itself: the operand is an invariant added or
+    /// subtracted (the lanes' sign says which).
+    SumLanes(u32),
+}
+
 /// A straight-line program over columns; its roots' values are summed over the rows.
 #[derive(Clone, Debug, Default)]
 struct ColProg {
@@ -61,10 +77,8 @@ struct ColProg {
     n_aux: usize,
     /// Reverse pass: whether a root's seed is the first write to its adjoint column.
     seed_store: Vec<bool>,
-    /// Reverse pass, per instruction and operand: first write to the operand's adjoint column?
-    store: Vec<[bool; 2]>,
-    /// Per instruction and operand: the lanes accumulating an invariant operand's gradient.
-    lanes: Vec<[u32; 2]>,
+    /// Reverse pass, per instruction and operand: where its share of the adjoint goes.
+    dest: Vec<[Dest; 2]>,
     /// Per set of lanes: the invariant it belongs to.
     lane_inv: Vec<u32>,
     /// Per set of lanes: −1 where they add up the adjoint that is then negated (the second
@@ -263,28 +277,71 @@ impl ColBuilder {
             .iter()
             .map(|&r| !std::mem::replace(&mut written[r as usize], true))
             .collect();
-        let mut store = vec![[false; 2]; n];
-        let mut lanes = vec![[NONE; 2]; n];
         let mut lane_inv = Vec::new();
         let mut lane_sign = Vec::new();
+        // A column that only adds an invariant to (or subtracts it from) data or a constant
+        // passes its adjoint on unchanged: whatever its users send it goes straight into the
+        // invariant's lanes (negated at the end for a subtracted invariant), and its own
+        // reverse step does nothing.
+        let mut through = vec![NONE; n];
+        for (j, ins) in self.code.iter().enumerate() {
+            let inert = |a: Arg| matches!(a, Arg::Data(_) | Arg::Const(_));
+            let inv = match (ins.op, ins.a, ins.b) {
+                (COp::Bin(Binary::Add), Arg::Inv(i), b) if inert(b) => Some((i, 1.0)),
+                (COp::Bin(Binary::Add | Binary::Sub), a, Arg::Inv(i)) if inert(a) => Some((
+                    i,
+                    if ins.op == COp::Bin(Binary::Sub) {
+                        -1.0
+                    } else {
+                        1.0
+                    },
+                )),
+                (COp::Bin(Binary::Sub), Arg::Inv(i), b) if inert(b) => Some((i, 1.0)),
+                _ => None,
+            };
+            if let (Some((i, sign)), false) = (inv, roots.contains(&(j as u32))) {
+                through[j] = lane_inv.len() as u32;
+                lane_inv.push(i);
+                lane_sign.push(sign);
+                written[j] = true;
+            }
+        }
+        let mut dest = vec![[Dest::Skip; 2]; n];
         for k in (0..n).rev() {
+            if through[k] != NONE {
+                continue;
+            }
             let ins = self.code[k];
             for (w, arg) in [ins.a, ins.b].into_iter().enumerate() {
-                match arg {
+                dest[k][w] = match arg {
+                    Arg::Col(j) if through[j as usize] != NONE => Dest::Lanes(through[j as usize]),
                     Arg::Col(j) => {
-                        store[k][w] = !std::mem::replace(&mut written[j as usize], true);
+                        if std::mem::replace(&mut written[j as usize], true) {
+                            Dest::Add(j)
+                        } else {
+                            Dest::Store(j)
+                        }
                     }
                     Arg::Inv(i) => {
-                        lanes[k][w] = lane_inv.len() as u32;
                         lane_inv.push(i);
                         let negated = matches!(
                             (ins.op, w),
                             (COp::Bin(Binary::Sub), 1) | (COp::Un(Unary::Neg), _)
                         );
                         lane_sign.push(if negated { -1.0 } else { 1.0 });
+                        let l = lane_inv.len() as u32 - 1;
+                        let additive = matches!(
+                            ins.op,
+                            COp::Bin(Binary::Add | Binary::Sub) | COp::Un(Unary::Neg)
+                        );
+                        if additive {
+                            Dest::SumLanes(l)
+                        } else {
+                            Dest::Lanes(l)
+                        }
                     }
-                    Arg::Const(_) | Arg::Data(_) => {}
-                }
+                    Arg::Const(_) | Arg::Data(_) => Dest::Skip,
+                };
             }
         }
         let unwritten = (0..n as u32).filter(|&j| !written[j as usize]).collect();
@@ -305,8 +362,7 @@ impl ColBuilder {
             aux,
             n_aux,
             seed_store,
-            store,
-            lanes,
+            dest,
             lane_inv,
             lane_sign,
             unwritten,
@@ -677,17 +733,12 @@ const LANES: usize = 16;
 
 type Lanes = [f64; LANES];
 
-/// The lanes added pairwise: ((l0 + l1) + (l2 + l3)) + …
+/// The lanes added as a tree: lane i and lane i + 8, then i and i + 4, i and i + 2, 0 and 1.
+#[inline]
 fn lane_total(l: &Lanes) -> f64 {
-    let mut w = *l;
-    let mut n = LANES;
-    while n > 1 {
-        n /= 2;
-        for i in 0..n {
-            w[i] = w[2 * i] + w[2 * i + 1];
-        }
-    }
-    w[0]
+    let w: [f64; 8] = std::array::from_fn(|i| l[i] + l[i + 8]);
+    let w: [f64; 4] = std::array::from_fn(|i| w[i] + w[i + 4]);
+    (w[0] + w[2]) + (w[1] + w[3])
 }
 
 impl RowLoop {
@@ -732,7 +783,8 @@ impl RowLoop {
         let (n_inv, n_roots) = (s.inv.len(), f.prog.roots.len());
         s.comb_vals[first..first + n_inv].copy_from_slice(&s.inv);
         s.comb_vals[first + n_inv..first + n_inv + n_roots].copy_from_slice(&s.sums[..n_roots]);
-        forward::<false>(c, &mut s.comb_vals, &mut s.comb_aux, |_, _| f64::NAN);
+        // In gradient mode (for the auxiliary values `combine_reverse` reads): it is small.
+        forward::<true>(c, &mut s.comb_vals, &mut s.comb_aux, |_, _| f64::NAN);
     }
 
     /// Whether the factored form may stand for the body as written: every pulled-out factor
@@ -900,18 +952,24 @@ impl RowLoop {
                 x => &s.aux[x as usize * b..x as usize * b + len],
             };
             let (a, bb) = (blk.src(ins.a, vals), blk.src(ins.b, vals));
-            for (w, arg) in [ins.a, ins.b].into_iter().enumerate() {
-                let sink = match arg {
-                    Arg::Col(j) => {
-                        let col = &mut lo[j as usize * b..j as usize * b + len];
-                        if p.store[k][w] {
-                            Sink::Store(col)
-                        } else {
-                            Sink::Add(col)
+            for (w, d) in p.dest[k].into_iter().enumerate() {
+                let sink = match d {
+                    Dest::Skip => continue,
+                    Dest::Store(j) => Sink::Store(&mut lo[j as usize * b..j as usize * b + len]),
+                    Dest::Add(j) => Sink::Add(&mut lo[j as usize * b..j as usize * b + len]),
+                    Dest::Lanes(l) => Sink::Lanes(&mut s.lanes[l as usize]),
+                    Dest::SumLanes(l) => {
+                        let lanes = &mut s.lanes[l as usize];
+                        match g {
+                            Src::Col(g) => add_lanes(lanes, g),
+                            Src::Val(w) => {
+                                let t = &mut s.tmp[..len];
+                                t.fill(w);
+                                add_lanes(lanes, t);
+                            }
                         }
+                        continue;
                     }
-                    Arg::Inv(_) => Sink::Lanes(&mut s.lanes[p.lanes[k][w] as usize]),
-                    Arg::Const(_) | Arg::Data(_) => continue,
                 };
                 col_partial(ins.op, w, g, a, bb, v, aux, sink, &mut s.tmp);
             }
@@ -1019,6 +1077,7 @@ fn sink(s: Sink, n: usize, tmp: &mut [f64], f: impl Fn(usize) -> f64) {
             }
         }
         Sink::Lanes(l) => {
+            // Into scratch, then into the lanes: two loops the compiler vectorises.
             let t = &mut tmp[..n];
             for (r, x) in t.iter_mut().enumerate() {
                 *x = f(r);
@@ -1143,26 +1202,6 @@ fn col_partial(
     tmp: &mut [f64],
 ) {
     let n = v.len();
-    // An invariant operand of an addition, subtraction or negation gets the sum of the
-    // adjoint (negated at the end for the lanes whose `lane_sign` says so).
-    let additive = matches!(
-        op,
-        COp::Bin(Binary::Add | Binary::Sub) | COp::Un(Unary::Neg)
-    );
-    let s = match s {
-        Sink::Lanes(l) if additive => {
-            match g {
-                Src::Col(g) => add_lanes(l, &g[..n]),
-                Src::Val(w) => {
-                    let t = &mut tmp[..n];
-                    t.fill(w);
-                    add_lanes(l, t);
-                }
-            }
-            return;
-        }
-        other => other,
-    };
     // A divisor the same on every row is applied as its reciprocal, as in `col_forward`.
     let recip = match (op, b) {
         (COp::Bin(Binary::Div), Src::Val(d)) if reciprocal_ok(d) => Some(1.0 / d),
