@@ -1187,7 +1187,8 @@ fn mask(g: f64, d: f64) -> f64 {
 }
 
 /// Sends operand `w`'s share of the adjoint `g` of one instruction (operands `a`, `b`, value
-/// `v`, auxiliary column `aux`) to its sink.
+/// `v`, auxiliary column `aux`) to its sink. Each kind of derivative is a small function of
+/// its own (`drive_*`), so that the compiler inlines its arithmetic into the row loops.
 #[allow(clippy::too_many_arguments)]
 #[inline(never)]
 fn col_partial(
@@ -1202,140 +1203,134 @@ fn col_partial(
     tmp: &mut [f64],
 ) {
     let n = v.len();
-    // A divisor the same on every row is applied as its reciprocal, as in `col_forward`.
-    let recip = match (op, b) {
-        (COp::Bin(Binary::Div), Src::Val(d)) if reciprocal_ok(d) => Some(1.0 / d),
-        _ => None,
-    };
-    let v = Rows { v, aux, recip };
-    match g {
-        Src::Col(g) => {
-            let g = &g[..n];
-            shaped(op, w, move |r| g[r], a, b, v, s, tmp)
-        }
-        Src::Val(g) => shaped(op, w, move |_| g, a, b, v, s, tmp),
-    }
-}
-
-/// [`partial`] with plain slice reads for the operand shapes of a row loop. The operand of a
-/// one-operand instruction in a row loop is always a column (it depends on the row); other
-/// shapes take a path of their own, so that nothing of theirs is hoisted into the common one.
-#[allow(clippy::too_many_arguments)]
-#[inline(always)]
-fn shaped(
-    op: COp,
-    w: usize,
-    g: impl Fn(usize) -> f64 + Copy,
-    a: Src,
-    b: Src,
-    v: Rows,
-    s: Sink,
-    tmp: &mut [f64],
-) {
-    let n = v.v.len();
-    match (op, a, b) {
-        (COp::Bin(_), Src::Col(x), Src::Col(y)) => {
-            let (x, y) = (&x[..n], &y[..n]);
-            partial(op, w, g, move |r| x[r], move |r| y[r], v, s, tmp)
-        }
-        (COp::Bin(_), Src::Col(x), Src::Val(y)) => {
-            let x = &x[..n];
-            partial(op, w, g, move |r| x[r], move |_| y, v, s, tmp)
-        }
-        (COp::Bin(_), Src::Val(x), Src::Col(y)) => {
-            let y = &y[..n];
-            partial(op, w, g, move |_| x, move |r| y[r], v, s, tmp)
-        }
-        (_, Src::Col(x), _) => {
-            let x = &x[..n];
-            partial(op, w, g, move |r| x[r], move |_| 0.0, v, s, tmp)
-        }
-        _ => partial_rare(op, w, g, a, b, v, s, tmp),
-    }
-}
-
-/// [`partial`] for operand shapes that a row loop does not produce.
-#[allow(clippy::too_many_arguments)]
-#[inline(never)]
-fn partial_rare(
-    op: COp,
-    w: usize,
-    g: impl Fn(usize) -> f64 + Copy,
-    a: Src,
-    b: Src,
-    v: Rows,
-    s: Sink,
-    tmp: &mut [f64],
-) {
-    partial(op, w, g, move |r| a.at(r), move |r| b.at(r), v, s, tmp)
-}
-
-/// What an instruction's reverse step reads besides its operands.
-#[derive(Clone, Copy)]
-struct Rows<'a> {
-    /// The instruction's values.
-    v: &'a [f64],
-    /// Its auxiliary column (empty if none).
-    aux: &'a [f64],
-    /// The reciprocal of a divisor that is the same on every row, if used.
-    recip: Option<f64>,
-}
-
-#[allow(clippy::too_many_arguments)]
-#[inline(always)]
-fn partial(
-    op: COp,
-    w: usize,
-    g: impl Fn(usize) -> f64 + Copy,
-    a: impl Fn(usize) -> f64,
-    b: impl Fn(usize) -> f64,
-    rows: Rows,
-    s: Sink,
-    tmp: &mut [f64],
-) {
-    let n = rows.v.len();
-    let (v, aux, recip) = (rows.v, rows.aux, rows.recip);
+    let vs = Src::Col(v);
     match (op, w) {
-        (COp::Bin(Binary::Add), _) | (COp::Bin(Binary::Sub), 0) => sink(s, n, tmp, g),
-        (COp::Bin(Binary::Sub), _) | (COp::Un(Unary::Neg), _) => sink(s, n, tmp, move |r| -g(r)),
-        (COp::Bin(Binary::Mul), 0) => sink(s, n, tmp, move |r| mask(g(r), b(r))),
-        (COp::Bin(Binary::Mul), _) => sink(s, n, tmp, move |r| mask(g(r), a(r))),
-        (COp::Bin(Binary::Div), w) => {
-            if let Some(q) = recip {
+        (COp::Bin(Binary::Add), _) | (COp::Bin(Binary::Sub), 0) => drive_g(s, n, tmp, g, |g| g),
+        (COp::Bin(Binary::Sub), _) | (COp::Un(Unary::Neg), _) => drive_g(s, n, tmp, g, |g| -g),
+        (COp::Bin(Binary::Mul), 0) => drive_ga(s, n, tmp, g, b, mask),
+        (COp::Bin(Binary::Mul), _) => drive_ga(s, n, tmp, g, a, mask),
+        (COp::Bin(Binary::Div), w) => match b {
+            // A divisor the same on every row is applied as its reciprocal, as in
+            // `col_forward`.
+            Src::Val(d) if reciprocal_ok(d) => {
+                let q = 1.0 / d;
                 if w == 0 {
-                    sink(s, n, tmp, move |r| mask(g(r), q))
+                    drive_g(s, n, tmp, g, move |g| mask(g, q))
                 } else {
-                    sink(s, n, tmp, move |r| mask(g(r), -v[r] * q))
+                    drive_ga(s, n, tmp, g, vs, move |g, v| mask(g, -v * q))
                 }
-            } else if w == 0 {
-                sink(s, n, tmp, move |r| mask(g(r), 1.0 / b(r)))
-            } else {
-                sink(s, n, tmp, move |r| mask(g(r), -v[r] / b(r)))
             }
+            _ if w == 0 => drive_ga(s, n, tmp, g, b, |g, b| mask(g, 1.0 / b)),
+            _ => drive_gab(s, n, tmp, g, vs, b, |g, v, b| mask(g, -v / b)),
+        },
+        (COp::Bin(op), w) => {
+            let k = move |g: f64, x: f64, y: f64, v: f64| {
+                let (da, db) = op.derivatives(x, y, v);
+                mask(g, if w == 0 { da } else { db })
+            };
+            drive_gabv(s, n, tmp, g, a, b, vs, k)
         }
-        (COp::Bin(op), w) => sink(s, n, tmp, move |r| {
-            let (da, db) = op.derivatives(a(r), b(r), v[r]);
-            mask(g(r), if w == 0 { da } else { db })
+        (COp::Un(Unary::Sin | Unary::Cos), _) => drive_ga(s, n, tmp, g, Src::Col(aux), mask),
+        (COp::Un(Unary::Exp), _) => drive_ga(s, n, tmp, g, vs, mask),
+        (COp::Un(u), _) => drive_gab(s, n, tmp, g, a, vs, move |g, x, v| {
+            mask(g, u.derivative(x, v))
         }),
-        (COp::Un(Unary::Sin | Unary::Cos), _) => {
-            let aux = &aux[..n];
-            sink(s, n, tmp, move |r| mask(g(r), aux[r]))
-        }
-        (COp::Un(Unary::Exp), _) => sink(s, n, tmp, move |r| mask(g(r), v[r])),
-        (COp::Un(u), _) => sink(s, n, tmp, move |r| mask(g(r), u.derivative(a(r), v[r]))),
-        (COp::Square, _) => sink(s, n, tmp, move |r| mask(g(r), 2.0 * a(r))),
-        (COp::PowI(k), _) => sink(s, n, tmp, move |r| {
-            let x = a(r);
+        (COp::Square, _) => drive_ga(s, n, tmp, g, a, |g, x| mask(g, 2.0 * x)),
+        (COp::PowI(k), _) => drive_ga(s, n, tmp, g, a, move |g, x| {
             let d = match k {
                 0 => 0.0,
                 1 => 1.0,
                 2 => 2.0 * x,
                 _ => k as f64 * powi_small(x, k - 1),
             };
-            mask(g(r), d)
+            mask(g, d)
         }),
-        (COp::PowC(c), _) => sink(s, n, tmp, move |r| {
-            mask(g(r), c * maths::pow(a(r), c - 1.0))
+        (COp::PowC(c), _) => drive_ga(s, n, tmp, g, a, move |g, x| {
+            mask(g, c * maths::pow(x, c - 1.0))
         }),
     }
+}
+
+/// A row loop over `n` rows reading one operand: `f(r)` from a column or a value.
+macro_rules! reader {
+    ($src:expr, $n:expr, |$f:ident| $body:expr) => {
+        match $src {
+            Src::Col(c) => {
+                let c = &c[..$n];
+                let $f = move |r: usize| c[r];
+                $body
+            }
+            Src::Val(x) => {
+                let $f = move |_: usize| x;
+                $body
+            }
+        }
+    };
+}
+
+/// The contribution `k(g)` of every row.
+#[inline(never)]
+fn drive_g(s: Sink, n: usize, tmp: &mut [f64], g: Src, k: impl Fn(f64) -> f64 + Copy) {
+    reader!(g, n, |gf| sink(s, n, tmp, move |r| k(gf(r))))
+}
+
+/// The contribution `k(g, x)` of every row.
+#[inline(never)]
+fn drive_ga(
+    s: Sink,
+    n: usize,
+    tmp: &mut [f64],
+    g: Src,
+    x: Src,
+    k: impl Fn(f64, f64) -> f64 + Copy,
+) {
+    reader!(g, n, |gf| reader!(x, n, |xf| sink(s, n, tmp, move |r| k(
+        gf(r),
+        xf(r)
+    ))))
+}
+
+/// The contribution `k(g, x, y)` of every row.
+#[allow(clippy::too_many_arguments)]
+#[inline(never)]
+fn drive_gab(
+    s: Sink,
+    n: usize,
+    tmp: &mut [f64],
+    g: Src,
+    x: Src,
+    y: Src,
+    k: impl Fn(f64, f64, f64) -> f64 + Copy,
+) {
+    reader!(g, n, |gf| reader!(x, n, |xf| reader!(y, n, |yf| sink(
+        s,
+        n,
+        tmp,
+        move |r| k(gf(r), xf(r), yf(r))
+    ))))
+}
+
+/// The contribution `k(g, x, y, v)` of every row (`v` a column).
+#[allow(clippy::too_many_arguments)]
+#[inline(never)]
+fn drive_gabv(
+    s: Sink,
+    n: usize,
+    tmp: &mut [f64],
+    g: Src,
+    x: Src,
+    y: Src,
+    v: Src,
+    k: impl Fn(f64, f64, f64, f64) -> f64 + Copy,
+) {
+    let v = match v {
+        Src::Col(v) => &v[..n],
+        Src::Val(_) => &[][..],
+    };
+    reader!(g, n, |gf| reader!(x, n, |xf| reader!(y, n, |yf| sink(
+        s,
+        n,
+        tmp,
+        move |r| k(gf(r), xf(r), yf(r), v[r])
+    ))))
 }
