@@ -2,15 +2,20 @@
 //!
 //! Owns: the flat instruction tape a [`Graph`] compiles to, and [`Evaluator`], which computes a
 //! formula's value and its gradient by reverse-mode differentiation with no allocation per
-//! call. Outside sums the tape is a list of single-level instructions, specialised for constant
-//! operands, with chains of additions of scaled terms fused into one instruction; in gradient
-//! mode the forward pass keeps what the reverse pass needs (the cosine beside a sine, the
-//! weight of a log-add-exp). Each `sum(…)` compiles to a row loop (`tape/rows.rs`) evaluated
-//! column by column over blocks of data rows; parts of its body that do not depend on the row
-//! are computed once outside the loop, parts that depend only on data are precomputed into
-//! columns at compile time, and row-invariant terms, factors and divisors are pulled out of the
-//! sum where that is exact algebra (with the body as written as the fallback wherever the
-//! factored form is not finite).
+//! call. Outside sums the tape is a list of single-level instructions: specialised for constant
+//! operands, for integer powers (of an operand shifted by a constant too) and for one-argument
+//! functions of a scaled operand; chains of additions of terms (scaled slots, products, shifted
+//! squares, constants) and chains of log-add-exps fused into one instruction each. Every fused
+//! or specialised instruction performs the operations it replaces, in the same order (a
+//! negated chain `-(a + b)` as `(-a) + (-b)`, the same up to the sign of a zero result), except
+//! the log-sum-exp of three or more finite arguments, computed as `m + log1p(Σ e^(x_i - m))`.
+//! In gradient mode the forward pass keeps what the reverse pass needs (the cosine beside a
+//! sine, a power's derivative, the weights of a log-sum-exp). Each `sum(…)` compiles to a row
+//! loop (`tape/rows.rs`) evaluated column by column over blocks of data rows; parts of its body
+//! that do not depend on the row are computed once outside the loop, parts that depend only on
+//! data are precomputed into columns at compile time, and row-invariant terms, factors and
+//! divisors are pulled out of the sum where that is exact algebra (with the body as written as
+//! the fallback wherever the factored form might not give the same number).
 //! Must not: know what the formula means (energy or log density, bounds, mixtures): that is
 //! `target`.
 
@@ -1056,28 +1061,19 @@ fn forward<const GRAD: bool>(
                 x * x
             }
             Op::PowI(a, n) => {
-                let x = v(a);
+                let (p, slope) = powi_with_slope(v(a), n);
                 if GRAD {
                     // The derivative, computed beside the power rather than after it.
-                    aux[o] = match n {
-                        0 => 0.0,
-                        1 => 1.0,
-                        2 => 2.0 * x,
-                        _ => n as f64 * powi_small(x, n - 1),
-                    };
+                    aux[o] = slope;
                 }
-                powi_small(x, n)
+                p
             }
             Op::ShiftPowI(a, n, m) => {
-                let (x, n) = (v(a) + m, n as i32);
+                let (p, slope) = powi_with_slope(v(a) + m, n as i32);
                 if GRAD {
-                    aux[o] = if n == 2 {
-                        2.0 * x
-                    } else {
-                        n as f64 * powi_small(x, n - 1)
-                    };
+                    aux[o] = slope;
                 }
-                powi_small(x, n)
+                p
             }
             Op::PowC(a, c) => maths::pow(v(a), c),
             Op::Pow(a, b) => maths::pow(v(a), v(b)),
@@ -1459,6 +1455,36 @@ impl Evaluator {
             adj[s] = 0.0;
         }
         self.vals[root]
+    }
+}
+
+/// `(x^n, n·x^(n-1))`: the power exactly as [`powi_small`] computes it, and its derivative
+/// from the same intermediate powers.
+#[inline(always)]
+fn powi_with_slope(x: f64, n: i32) -> (f64, f64) {
+    match n {
+        0 => (1.0, 0.0),
+        1 => (x, 1.0),
+        2 => (x * x, 2.0 * x),
+        3 => {
+            let x2 = x * x;
+            (x * x2, 3.0 * x2)
+        }
+        4 => {
+            let x2 = x * x;
+            (x2 * x2, 4.0 * (x * x2))
+        }
+        5 => {
+            let x2 = x * x;
+            let x4 = x2 * x2;
+            (x * x4, 5.0 * x4)
+        }
+        6 => {
+            let x2 = x * x;
+            let x4 = x2 * x2;
+            (x2 * x4, 6.0 * (x * x4))
+        }
+        _ => (powi_small(x, n), n as f64 * powi_small(x, n - 1)),
     }
 }
 

@@ -5,10 +5,13 @@
 //! sum (row-invariant terms, factors and divisors pulled out, so that the loop computes only the
 //! row-dependent cores), and the rule that decides between the two on each call: the factored
 //! form is used only when its pulled-out factors are finite (divisors also non-zero, powers of
-//! them normal numbers) and its result is finite; otherwise the body as written is evaluated.
-//! Row sums are accumulated in 16 lanes by row index (row mod 16) and the lanes added as a
-//! fixed tree, so the order of additions is fixed, whatever the block size and on every
-//! platform.
+//! them normal numbers), its result is finite and its terms do not cancel; otherwise the body as
+//! written is evaluated (and where the factored form's gradient is not finite, the body as
+//! written gives the gradient). A division of a column by a row-invariant value multiplies by
+//! its reciprocal where that is a normal number. Row sums are accumulated in 16 lanes by row
+//! index (row mod 16)
+//! and the lanes added as a fixed tree, so the order of additions is fixed, whatever the block
+//! size and on every platform.
 //! Must not: expand products or powers of sums (which would cancel catastrophically), or split
 //! a difference of a data value and an unknown; know anything outside one sum.
 

@@ -404,6 +404,27 @@ fn written_out_powers_are_repeated_squaring() {
 }
 
 #[test]
+fn powers_with_their_derivatives() {
+    let mut rng = Stream::new(3, Purpose::Check, 20);
+    for _ in 0..2000 {
+        let x = (rng.uniform() - 0.5) * 20.0;
+        for n in -3..=12 {
+            let (p, d) = powi_with_slope(x, n);
+            assert_eq!(p.to_bits(), powi(x, n).to_bits(), "{x}^{n}");
+            let want = if n == 0 {
+                0.0
+            } else {
+                n as f64 * powi(x, n - 1)
+            };
+            assert!(
+                (d - want).abs() <= 1e-14 * want.abs(),
+                "{x}^{n}: {d} vs {want}"
+            );
+        }
+    }
+}
+
+#[test]
 fn sine_and_cosine_together_are_the_same_bits() {
     // Gradient mode computes both at once (libm's sincos); value mode calls sin and cos.
     let mut rng = Stream::new(3, Purpose::Check, 12);
