@@ -84,8 +84,8 @@ struct ColProg {
     dest: Vec<[Dest; 2]>,
     /// Per set of lanes: the invariant it belongs to.
     lane_inv: Vec<u32>,
-    /// Per set of lanes: −1 where they add up the adjoint that is then negated (the second
-    /// operand of a subtraction, a negation), else 1.
+    /// Per set of lanes: −1 where they add up an adjoint that is then negated (an invariant
+    /// subtracted or negated, directly or by a pass-through column), else 1.
     lane_sign: Vec<f64>,
     /// Columns no reverse step writes (none in practice): zeroed before each reverse pass.
     unwritten: Vec<u32>,
