@@ -39,6 +39,14 @@ pub const MAX_FEATURES: usize = 1500;
 pub const MIN_DRAWS: usize = 400;
 /// A component's features need this many draws (counted by its responsibilities) per feature.
 pub const DRAWS_PER_FEATURE: f64 = 50.0;
+/// Draws in all per feature, when the base's components are separated (each draw mostly one
+/// component's) and when they overlap. Overlapping components make their features nearly
+/// collinear, and then the regression's own noise is not reflected well in the residual
+/// (measured: a 16-component fit to the 1-D x⁴ with 48 features on 3000 draws gave 95 %
+/// intervals that covered the truth in 80 % of runs; at 200 draws per feature, 40/40).
+pub const TOTAL_DRAWS_PER_FEATURE: [usize; 2] = [50, 200];
+/// Mean largest responsibility of a draw at or above which the components count as separated.
+pub const SEPARATED: f64 = 0.9;
 /// Responsibilities below this are treated as zero (the component's features vanish there).
 const ACTIVE: f64 = 1e-12;
 
@@ -159,8 +167,8 @@ fn activity(q: &Mixture, x: &[f64], logp: &mut [f64], y: &mut [f64]) -> Active {
 /// Chooses each component's degree from the draws it is responsible for: the highest degree
 /// whose features it has [`DRAWS_PER_FEATURE`] draws for; `None` for a
 /// component with too few draws for even its constant. Trims the highest degrees first while
-/// there are more than [`MAX_FEATURES`] in all.
-fn degrees(q: &Mixture, counts: &[f64]) -> Vec<Option<usize>> {
+/// there are more than [`MAX_FEATURES`] in all or fewer than `per_feature` draws per feature.
+fn degrees(q: &Mixture, counts: &[f64], draws: usize, per_feature: usize) -> Vec<Option<usize>> {
     let d = q.dim;
     let mut out: Vec<Option<usize>> = counts
         .iter()
@@ -170,9 +178,10 @@ fn degrees(q: &Mixture, counts: &[f64]) -> Vec<Option<usize>> {
                 .find(|&deg| n >= DRAWS_PER_FEATURE * count(d, deg) as f64)
         })
         .collect();
+    let most = MAX_FEATURES.min(draws / per_feature.max(1));
     loop {
         let total: usize = out.iter().flatten().map(|&deg| count(d, deg)).sum();
-        if total <= MAX_FEATURES {
+        if total <= most {
             break;
         }
         let Some(top) = out.iter().flatten().copied().max() else {
@@ -253,9 +262,16 @@ pub fn adjust(
     let k = q.components.len();
     let mut logp = vec![0.0; k];
     let mut y = vec![0.0; k * d];
+    // How separated the components are: the mean largest responsibility (undamped).
+    let mut top_sum = 0.0;
     let actives: Vec<Active> = points
         .iter()
-        .map(|x| activity(q, x, &mut logp, &mut y))
+        .map(|x| {
+            let a = activity(q, x, &mut logp, &mut y);
+            let top = logp.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+            top_sum += 1.0 / logp.iter().map(|l| exp(l - top)).sum::<f64>();
+            a
+        })
         .collect();
     // Draws per component, counted by responsibilities (damped: the draws that inform it).
     let mut counts = vec![0.0; k];
@@ -264,7 +280,9 @@ pub fn adjust(
             counts[*c] += r;
         }
     }
-    let degs = degrees(q, &counts);
+    let separated = top_sum / n as f64 >= SEPARATED;
+    let per_feature = TOTAL_DRAWS_PER_FEATURE[usize::from(!separated)];
+    let degs = degrees(q, &counts, n, per_feature);
     let monos: Vec<Vec<Vec<usize>>> = degs
         .iter()
         .map(|deg| deg.map_or(Vec::new(), |dg| monomials(d, dg)))
@@ -481,8 +499,12 @@ mod tests {
         let a = Gaussian::new(&[0.0, 0.0], &[vec![1.0, 0.0], vec![0.0, 1.0]]).unwrap();
         let q = Mixture::new(vec![a.clone(), a.clone(), a], &[1.0, 1.0, 1.0]);
         // 2-D: 1, 3, 6, 10 monomials up to degree 0..3; 50 draws per feature.
-        let degs = degrees(&q, &[500.0, 160.0, 40.0]);
+        let degs = degrees(&q, &[500.0, 160.0, 40.0], 1_000_000, 200);
         assert_eq!(degs, vec![Some(3), Some(1), None]);
+        // With 2400 draws in all, at most 12 features: the highest degree is trimmed first
+        // (10 + 3 = 13 features become 6 + 3).
+        let degs = degrees(&q, &[500.0, 160.0, 40.0], 2400, 200);
+        assert_eq!(degs, vec![Some(2), Some(1), None]);
     }
 
     #[test]

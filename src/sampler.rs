@@ -830,7 +830,7 @@ fn efficiency(bias: &Bias, records: &[Record]) -> (f64, f64) {
         .sum();
     (
         crate::estimates::ess(&refs) / evaluations.max(1) as f64,
-        under / weight,
+        (under / weight).max(0.0),
     )
 }
 
@@ -1068,7 +1068,7 @@ impl Plan {
             })
             .map(|(_, wi)| wi)
             .sum();
-        far / total
+        (far / total).max(0.0)
     }
 
     /// Chooses the base for the rest of warm-up from candidates fitted to the windows since the

@@ -59,7 +59,12 @@ async function handle(msg) {
     case 'init': {
       if (!kilnReady) {
         const source = msg.wasm ? msg.wasm : 'pkg/kiln_bg.wasm';
-        kilnReady = wasm_bindgen({ module_or_path: source });
+        kilnReady = wasm_bindgen({ module_or_path: source }).catch(function (e) {
+          // The engine is built with WebAssembly SIMD; a browser without it cannot compile it.
+          const m = e && e.message ? String(e.message) : String(e);
+          throw new Error('the engine could not be loaded (' + m + '); it needs a browser with ' +
+            'WebAssembly SIMD: Chrome or Edge 91+, Firefox 89+, Safari 16.4+');
+        });
       }
       await kilnReady;
       return { type: 'inited', version: wasm_bindgen.version() };
