@@ -830,7 +830,8 @@ fn efficiency(bias: &Bias, records: &[Record]) -> (f64, f64) {
         .sum();
     (
         crate::estimates::ess(&refs) / evaluations.max(1) as f64,
-        (under / weight).max(0.0),
+        // An empty sum is −0.0; print it as 0 the same way on every platform.
+        if under > 0.0 { under / weight } else { 0.0 },
     )
 }
 
@@ -1068,7 +1069,11 @@ impl Plan {
             })
             .map(|(_, wi)| wi)
             .sum();
-        (far / total).max(0.0)
+        if far > 0.0 {
+            far / total
+        } else {
+            0.0
+        }
     }
 
     /// Chooses the base for the rest of warm-up from candidates fitted to the windows since the

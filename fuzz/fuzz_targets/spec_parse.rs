@@ -7,11 +7,11 @@ fuzz_target!(|data: &[u8]| {
     let Ok(text) = std::str::from_utf8(data) else { return };
     match kiln::parse_spec("fuzz.json", text) {
         Ok(spec) => {
-            // Keep each case quick: small mode searches only.
+            // Keep each case quick under instrumentation: small mode searches and grids only.
             if spec.dimension() <= 3 && spec.data_rows <= 64 {
                 let mut spec = spec;
                 spec.settings.starts = Some(4);
-                match kiln::pipeline::check(&spec) {
+                match kiln::pipeline::check_with_grid_budget(&spec, 2e7) {
                     Ok(_) => {}
                     Err(e) => {
                         let _ = e.render();
