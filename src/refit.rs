@@ -169,7 +169,7 @@ pub fn refit(
     let mut weights = vec![1.0 / k as f64; k];
     let mut resp = vec![0.0; n * k];
     let mut last_ll = f64::NEG_INFINITY;
-    for _iter in 0..EM_ITERATIONS {
+    for _iter in 0..GLOBAL_EM_ITERATIONS {
         // E step.
         let comps: Vec<Option<Gaussian>> = (0..k)
             .map(|c| Gaussian::from_flat(means[c].clone(), &covs[c], f64::INFINITY))
@@ -287,6 +287,8 @@ type Part = (f64, Vec<f64>, Vec<f64>);
 
 /// Most EM iterations of a per-mode fit.
 pub const EM_ITERATIONS: usize = 40;
+/// Most EM iterations of the global fit (many components sharing the draws converge slowly).
+pub const GLOBAL_EM_ITERATIONS: usize = 100;
 /// Share of its Laplace weight a mode keeps at least in a refitted base.
 pub const WEIGHT_FLOOR: f64 = 0.05;
 /// Effective draws needed per free parameter of a fitted component.

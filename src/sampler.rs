@@ -1021,7 +1021,7 @@ impl Plan {
         let cost = n_points as f64
             * global_components(modes) as f64
             * (d * d) as f64
-            * crate::refit::EM_ITERATIONS as f64;
+            * crate::refit::GLOBAL_EM_ITERATIONS as f64;
         if cost <= 2e9 {
             out.push(Candidate::Global);
         }
@@ -1394,6 +1394,8 @@ pub struct Stepper {
     /// Effective draws of the log Z series per evaluation in the last window that made a
     /// Hamiltonian move in every iteration (the reference for the trial of cheaper moves).
     full_efficiency: f64,
+    /// The trial of cheaper moves was skipped (the base did not cover the target).
+    trial_skipped: bool,
 }
 
 fn merge_records(into: &mut Record, r: &Record) {
@@ -1477,6 +1479,7 @@ impl Stepper {
             kept,
             window,
             full_efficiency: 0.0,
+            trial_skipped: false,
         })
     }
 
@@ -1606,20 +1609,41 @@ impl Stepper {
         }
         // How often to make a Hamiltonian move. Window 0 makes one in every iteration (the step
         // size adapts); the following windows make them with the probability that the measured
-        // acceptance of the independence moves suggests, except window TRIAL_WINDOW − 1, which
+        // acceptance of the independence moves suggests (when the base covers the target),
+        // except window TRIAL_WINDOW − 1, which
         // makes one in every iteration again as the reference for the trial: after window
         // TRIAL_WINDOW, the cheaper schedule is kept if its draws carried more effective draws of
         // the log Z series per evaluation than the reference window's did.
         if plan.is_tempered() && plan.options.independence {
             let (eff, under) = efficiency(&used, records);
             if w + 2 < TRIAL_WINDOW {
-                plan.p_gradient = suggested_probability(records);
+                // Only where the base covers the target (see UNDER_COVERED); otherwise the
+                // Hamiltonian moves explore what the next refit is fitted to.
+                plan.p_gradient = if under <= UNDER_COVERED {
+                    suggested_probability(records)
+                } else {
+                    1.0
+                };
             } else if w + 2 == TRIAL_WINDOW {
                 plan.p_gradient = 1.0;
             } else if w + 1 == TRIAL_WINDOW {
-                plan.p_gradient = suggested_probability(records);
+                // The trial runs only where the reference window found the base covering the
+                // target; otherwise its window keeps exploring with Hamiltonian moves.
                 self.full_efficiency = eff;
-            } else if w == TRIAL_WINDOW {
+                self.trial_skipped = under > UNDER_COVERED;
+                plan.p_gradient = if self.trial_skipped {
+                    1.0
+                } else {
+                    suggested_probability(records)
+                };
+                if self.trial_skipped {
+                    plan.notes.push(format!(
+                        "Hamiltonian moves in every iteration: {:.1}% of the target's weight lies where the base falls short of it by more than e² (above the {}% up to which mostly independence moves are tried)",
+                        100.0 * under,
+                        100.0 * UNDER_COVERED
+                    ));
+                }
+            } else if w == TRIAL_WINDOW && !self.trial_skipped {
                 let cheap = plan.p_gradient;
                 let close = under <= UNDER_COVERED;
                 plan.p_gradient = if eff > self.full_efficiency && close {
