@@ -1483,6 +1483,38 @@ impl Stepper {
         })
     }
 
+    /// Splits the sampling steps not yet run into pieces of at most `max` iterations. Kept
+    /// draws only accumulate between sampling steps, so the draws are the same; a caller that
+    /// stops at a budget of evaluations can then stop closer to it.
+    pub fn split_sampling(&mut self, max: usize) {
+        let max = max.max(1);
+        let at = self.at;
+        let first = self.steps[at..]
+            .iter()
+            .position(|s| matches!(s, Step::Sample { .. }))
+            .map_or(self.steps.len(), |i| at + i);
+        let left: usize = self.steps[first..]
+            .iter()
+            .map(|s| match s {
+                Step::Sample { iterations, .. } | Step::Warmup { iterations, .. } => *iterations,
+            })
+            .sum();
+        self.steps.truncate(first);
+        let done = self
+            .steps
+            .iter()
+            .filter(|s| matches!(s, Step::Sample { .. }))
+            .count();
+        let k = left.div_ceil(max);
+        for i in 0..k {
+            let iterations = left / k + usize::from(i < left % k);
+            self.steps.push(Step::Sample {
+                chunk: done + i,
+                iterations,
+            });
+        }
+    }
+
     /// The current step, or `None` when the run is done.
     pub fn step(&self) -> Option<Step> {
         self.steps.get(self.at).copied()
@@ -1741,6 +1773,57 @@ mod tests {
             new.x
         );
         assert_eq!(plan.laplace.base.components.len(), 2);
+    }
+
+    #[test]
+    fn finer_sampling_steps_keep_the_same_draws() {
+        // Kept draws only accumulate between sampling steps: splitting them must change nothing.
+        let spec = crate::parse_spec(
+            "t",
+            r#"{"mixture": [{"weight": 1, "mean": [0, 0], "sd": [1, 1]}, {"weight": 0.5, "mean": [6, 0], "sd": [0.7, 0.7]}]}"#,
+        )
+        .unwrap();
+        let target = Target::from_spec(&spec).unwrap();
+        let search =
+            crate::modes::find_modes(&target, crate::modes::SearchOptions::default_for(2, 1))
+                .unwrap();
+        let laplace = Laplace::from_modes(&search.modes).unwrap();
+        let mut opts = SamplerOptions::new(5);
+        opts.warmup = 150;
+        opts.draws = 230;
+        let run = |split: Option<usize>| {
+            let mut s = Stepper::new(
+                &target,
+                search.modes.clone(),
+                laplace.clone(),
+                opts.clone(),
+                None,
+            )
+            .unwrap();
+            let mut sample_steps = 0;
+            while let Some(step) = s.step() {
+                if matches!(step, Step::Sample { .. }) {
+                    if let Some(m) = split.filter(|_| sample_steps == 0) {
+                        s.split_sampling(m);
+                    }
+                    sample_steps += 1;
+                }
+                let r = s.run_step();
+                s.absorb(r).unwrap();
+            }
+            (s.kept.clone(), sample_steps)
+        };
+        let (a, na) = run(None);
+        let (b, nb) = run(Some(7));
+        assert_eq!(na, 3);
+        assert_eq!(nb, 230usize.div_ceil(7));
+        for (x, y) in a.iter().zip(&b) {
+            assert_eq!(x.iterations, 230);
+            assert_eq!(x.iterations, y.iterations);
+            assert_eq!(x.z, y.z);
+            assert_eq!(x.beta, y.beta);
+            assert_eq!(x.evaluations, y.evaluations);
+        }
     }
 
     #[test]

@@ -5,6 +5,8 @@
 //! report mode masses (its draws, assigned to modes, add up to one). Importance sampling is
 //! checked only where its weights have finite variance (the 2-D case): on the 1-D case the
 //! base's tails are lighter than the target's skirt, and its standard error means nothing.
+//! Kiln's own benchmark runs (pilot, then a run stopped by the budget) are held to the same
+//! budget rule and the same exact log Z.
 // Reference values use the platform maths library on purpose: an independent implementation.
 #![allow(clippy::disallowed_methods)]
 
@@ -136,4 +138,36 @@ fn plain_nuts_reports_masses_but_no_log_z() {
         shares[c.groups.group(&o.draws.x[i * 2..i * 2 + 2])] += 1.0 / o.draws.len() as f64;
     }
     assert!((shares.iter().sum::<f64>() - 1.0).abs() < 1e-9);
+}
+
+#[test]
+fn kiln_at_a_budget_stops_near_it_and_gets_the_exact_log_z() {
+    // The benchmark's Kiln runs: iteration counts from a pilot, then a run stopped by the
+    // budget. The budget must hold as it does for the baselines, and log Z must match the
+    // exact total weight within its standard error.
+    let c = &cases()[1];
+    let (p, _) = prepared(c);
+    for budget in [20_000u64, 60_000] {
+        let counts = kiln::bench::kiln_counts(&p, budget).unwrap();
+        for seed in 1..=2 {
+            let r =
+                kiln::bench::kiln_run(&p, seed, counts.warmup, counts.draws, Some(budget)).unwrap();
+            assert!(
+                r.evaluations <= budget + budget / 50 && r.evaluations >= budget * 9 / 10,
+                "Kiln: {} evaluations for a budget of {budget}",
+                r.evaluations
+            );
+            let err = r.log_z - c.log_z;
+            assert!(
+                r.log_z_se > 0.0 && err.abs() <= 4.0 * r.log_z_se + 1e-3,
+                "Kiln at {budget}: log Z {} ± {} vs exact {} ({})",
+                r.log_z,
+                r.log_z_se,
+                c.log_z,
+                r.notes
+            );
+            let e = c.groups.largest_error(&r.draws).unwrap();
+            assert!(e < 0.1, "Kiln at {budget}: mass error {e}");
+        }
+    }
 }
