@@ -85,17 +85,9 @@ impl Gaussian {
 
     /// Solves L y = x − mean into `y`; returns |y|².
     fn whiten(&self, x: &[f64], y: &mut [f64]) -> f64 {
-        let d = self.dim;
-        let mut q = 0.0;
-        for i in 0..d {
-            let mut s = x[i] - self.mean[i];
-            for k in 0..i {
-                s -= self.chol[i * d + k] * y[k];
-            }
-            y[i] = s / self.chol[i * d + i];
-            q += y[i] * y[i];
-        }
-        q
+        // With no limit the partial sum never passes it (a NaN sum is not greater either).
+        self.whiten_until(x, y, f64::INFINITY)
+            .unwrap_or(f64::INFINITY)
     }
 
     /// Log density at `x`. `scratch` needs `dim` entries; it is left holding the whitened

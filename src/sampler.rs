@@ -1735,19 +1735,25 @@ impl Stepper {
 mod tests {
     use super::*;
 
+    /// A 2-D mixture of a unit mode at the origin and a narrower, lighter one at (c, c), and
+    /// the modes the optimiser finds.
+    fn two_modes_at(c: f64) -> (Target, crate::modes::ModeSearch) {
+        let text = format!(
+            r#"{{"mixture": [{{"weight": 1, "mean": [0, 0], "sd": [1, 1]}}, {{"weight": 0.5, "mean": [{c}, {c}], "sd": [0.7, 0.7]}}]}}"#
+        );
+        let spec = crate::parse_spec("t", &text).unwrap();
+        let target = Target::from_spec(&spec).unwrap();
+        let search =
+            crate::modes::find_modes(&target, crate::modes::SearchOptions::default_for(2, 1))
+                .unwrap();
+        (target, search)
+    }
+
     #[test]
     fn draws_in_an_unexplored_region_become_a_new_mode() {
         // A mixture whose second component (at (8, 8)) the optimiser is made to miss: keep only
         // the first mode, then hand the plan draws near β = 1 sitting around (8, 8).
-        let spec = crate::parse_spec(
-            "t",
-            r#"{"mixture": [{"weight": 1, "mean": [0, 0], "sd": [1, 1]}, {"weight": 0.5, "mean": [8, 8], "sd": [0.7, 0.7]}]}"#,
-        )
-        .unwrap();
-        let target = Target::from_spec(&spec).unwrap();
-        let mut search =
-            crate::modes::find_modes(&target, crate::modes::SearchOptions::default_for(2, 1))
-                .unwrap();
+        let (target, mut search) = two_modes_at(8.0);
         search.modes.retain(|m| m.x[0] < 4.0);
         assert_eq!(search.modes.len(), 1);
         let laplace = Laplace::from_modes(&search.modes).unwrap();
@@ -1778,15 +1784,7 @@ mod tests {
     #[test]
     fn finer_sampling_steps_keep_the_same_draws() {
         // Kept draws only accumulate between sampling steps: splitting them must change nothing.
-        let spec = crate::parse_spec(
-            "t",
-            r#"{"mixture": [{"weight": 1, "mean": [0, 0], "sd": [1, 1]}, {"weight": 0.5, "mean": [6, 0], "sd": [0.7, 0.7]}]}"#,
-        )
-        .unwrap();
-        let target = Target::from_spec(&spec).unwrap();
-        let search =
-            crate::modes::find_modes(&target, crate::modes::SearchOptions::default_for(2, 1))
-                .unwrap();
+        let (target, search) = two_modes_at(6.0);
         let laplace = Laplace::from_modes(&search.modes).unwrap();
         let mut opts = SamplerOptions::new(5);
         opts.warmup = 150;

@@ -458,6 +458,16 @@ pub struct DataTable<'a> {
     pub rows: usize,
 }
 
+impl<'a> DataTable<'a> {
+    /// A table of equally long columns (no columns: no rows).
+    pub fn of(columns: &'a [Vec<f64>]) -> DataTable<'a> {
+        DataTable {
+            columns,
+            rows: columns.first().map_or(0, |c| c.len()),
+        }
+    }
+}
+
 enum Replacement {
     Const(f64),
     Times(f64, NodeId),

@@ -43,20 +43,13 @@ struct Case {
 fn compile(text: &str, vars: &[String], data: &[(&str, Vec<f64>)]) -> Evaluator {
     let names: Vec<String> = data.iter().map(|(n, _)| n.to_string()).collect();
     let columns: Vec<Vec<f64>> = data.iter().map(|(_, c)| c.clone()).collect();
-    let rows = columns.first().map_or(0, |c| c.len());
+    let table = DataTable::of(&columns);
     // The formulas are constants of this module, never user input; the benchmark tests run them,
     // so these `expect`s cannot fire.
     let prog = crate::syntax::parse("energy", text).expect("benchmark formula parses");
-    let graph = crate::check::check("energy", text, &prog, vars, &names, rows)
+    let graph = crate::check::check("energy", text, &prog, vars, &names, table.rows)
         .expect("benchmark formula checks");
-    let tape = Tape::compile(
-        &graph,
-        vars.len(),
-        &DataTable {
-            columns: &columns,
-            rows,
-        },
-    );
+    let tape = Tape::compile(&graph, vars.len(), &table);
     Evaluator::new(Arc::new(tape))
 }
 

@@ -139,6 +139,14 @@ const BLOCK_CELLS: usize = 16384;
 /// row's terms into the rounding of each term's sum, which is harmless unless they cancel.
 const CANCELLATION: f64 = 64.0;
 
+/// The slot of `id` in `list`, appending it the first time it is seen.
+fn intern(list: &mut Vec<NodeId>, index: &mut HashMap<NodeId, u32>, id: NodeId) -> u32 {
+    *index.entry(id).or_insert_with(|| {
+        list.push(id);
+        (list.len() - 1) as u32
+    })
+}
+
 struct Ctx<'a> {
     nodes: &'a [Node],
     flags: &'a [Flags],
@@ -150,22 +158,10 @@ struct Ctx<'a> {
 
 impl Ctx<'_> {
     fn invariant(&mut self, id: NodeId) -> u32 {
-        if let Some(&i) = self.inv_index.get(&id) {
-            return i;
-        }
-        self.inv.push(id);
-        let i = (self.inv.len() - 1) as u32;
-        self.inv_index.insert(id, i);
-        i
+        intern(&mut self.inv, &mut self.inv_index, id)
     }
     fn data(&mut self, id: NodeId) -> u32 {
-        if let Some(&i) = self.data_index.get(&id) {
-            return i;
-        }
-        self.data_nodes.push(id);
-        let i = (self.data_nodes.len() - 1) as u32;
-        self.data_index.insert(id, i);
-        i
+        intern(&mut self.data_nodes, &mut self.data_index, id)
     }
     /// Depends on unknowns and data: computed per row.
     fn is_row(&self, id: NodeId) -> bool {

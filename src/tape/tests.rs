@@ -18,17 +18,10 @@ fn build(text: &str, vars: &[&str], cols: &[(&str, Vec<f64>)]) -> Compiled {
     let var_names: Vec<String> = vars.iter().map(|s| s.to_string()).collect();
     let names: Vec<String> = cols.iter().map(|c| c.0.to_string()).collect();
     let columns: Vec<Vec<f64>> = cols.iter().map(|c| c.1.clone()).collect();
-    let rows = columns.first().map_or(0, |c| c.len());
+    let table = DataTable::of(&columns);
     let prog = parse("energy", text).unwrap();
-    let graph = check("energy", text, &prog, &var_names, &names, rows).unwrap();
-    let tape = Tape::compile(
-        &graph,
-        vars.len(),
-        &DataTable {
-            columns: &columns,
-            rows,
-        },
-    );
+    let graph = check("energy", text, &prog, &var_names, &names, table.rows).unwrap();
+    let tape = Tape::compile(&graph, vars.len(), &table);
     Compiled {
         graph,
         columns,
