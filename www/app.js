@@ -467,6 +467,29 @@
     }
     afterModelReplaced(slotId);
   }
+  // Replace both models at once (a shared comparison), with one undo that restores both.
+  function replaceBothModels(loadedA, loadedB, label) {
+    const keep = function (slot) { return slot ? { form: JSON.parse(JSON.stringify(slot.form)), settings: Object.assign({}, slot.settings) } : null; };
+    const prevA = keep(state.slots.A), prevB = keep(state.slots.B);
+    state.slots.A = newSlot(loadedA.form, loadedA.settings);
+    state.slots.B = newSlot(loadedB.form, loadedB.settings);
+    if (prevA || prevB) {
+      notice([label + ' (models A and B). '], {
+        action: {
+          label: 'Undo', fn: function () {
+            if (state.running) return;
+            state.slots.A = prevA ? newSlot(prevA.form, prevA.settings) : newSlot();
+            state.slots.B = prevB ? newSlot(prevB.form, prevB.settings) : null;
+            if (!state.slots.B && state.active === 'B') state.active = 'A';
+            afterModelReplaced('A');
+            if (state.slots.B) afterModelReplaced('B');
+          },
+        },
+      });
+    }
+    afterModelReplaced('A');
+    afterModelReplaced('B');
+  }
   function afterModelReplaced(slotId) {
     if (state.active === slotId) writeFormToDom();
     saveSoon();
@@ -1504,12 +1527,19 @@
     return new TextDecoder('utf-8', { fatal: true }).decode(all);
   }
 
+  // The link carries model A and, when there is one, model B, so a comparison travels whole:
+  // {spec, settings} for A, and b: {spec, settings} for B.
   async function copyShareLink() {
-    const slot = activeSlot();
-    if (!slot) return;
-    const b = buildSpec(slot);
-    if (b.errors.length) { notice(['Fix these before sharing:', el('pre', null, b.errors.join('\n'))], { bad: true }); return; }
-    const payload = JSON.stringify({ spec: b.spec, settings: b.settings });
+    const A = state.slots.A, B = state.slots.B;
+    if (!A) return;
+    const ba = buildSpec(A);
+    const bb = B ? buildSpec(B) : null;
+    const errors = ba.errors.map(function (e) { return (B ? 'model A: ' : '') + e; })
+      .concat(bb ? bb.errors.map(function (e) { return 'model B: ' + e; }) : []);
+    if (errors.length) { notice(['Fix these before sharing:', el('pre', null, errors.join('\n'))], { bad: true }); return; }
+    const shared = { spec: ba.spec, settings: ba.settings };
+    if (bb) shared.b = { spec: bb.spec, settings: bb.settings };
+    const payload = JSON.stringify(shared);
     let link;
     try {
       const here = location.protocol === 'file:' ? location.href.split('#')[0] : location.origin + location.pathname;
@@ -1521,30 +1551,39 @@
     let copied = false;
     try { await navigator.clipboard.writeText(link); copied = true; } catch (e) { copied = false; }
     notice([(copied ? 'Share link copied to the clipboard' : 'The share link is ready in “Take away” (copying was not allowed here)') +
-      ' — ' + fmtInt(link.length) + ' characters. The model and settings travel inside the link itself; nothing is stored anywhere else.' +
+      ' — ' + fmtInt(link.length) + ' characters. ' + (bb ? 'Both models (A and B) and their settings travel' : 'The model and its settings travel') +
+      ' inside the link itself; nothing is stored anywhere else.' +
       (link.length > 60000 ? ' This link is long; some apps shorten or break links this size: a spec file is safer.' : '')]);
   }
 
-  function validateShared(obj) {
-    if (!obj || typeof obj !== 'object' || Array.isArray(obj)) throw new Error('the link does not hold a JSON object');
-    for (const k of Object.keys(obj)) if (k !== 'spec' && k !== 'settings') throw new Error('unknown key `' + k + '` (allowed: spec, settings)');
-    if (!obj.spec || typeof obj.spec !== 'object' || Array.isArray(obj.spec)) throw new Error('the link has no `spec` object');
+  // One shared model: {spec, settings}. `where` names it in messages ('' or 'model B: ').
+  function validateSharedModel(obj, where, allowed) {
+    if (!obj || typeof obj !== 'object' || Array.isArray(obj)) throw new Error(where + 'the link does not hold a JSON object');
+    for (const k of Object.keys(obj)) if (allowed.indexOf(k) < 0) throw new Error(where + 'unknown key `' + k + '` (allowed: ' + allowed.join(', ') + ')');
+    if (!obj.spec || typeof obj.spec !== 'object' || Array.isArray(obj.spec)) throw new Error(where + 'the link has no `spec` object');
     const settings = {};
     if (obj.settings != null) {
       const s = obj.settings;
-      if (typeof s !== 'object' || Array.isArray(s)) throw new Error('`settings` must be an object');
+      if (typeof s !== 'object' || Array.isArray(s)) throw new Error(where + '`settings` must be an object');
       for (const k of Object.keys(s)) {
         const v = s[k];
-        if (SETTING_KEYS.indexOf(k) < 0) throw new Error('unknown setting `' + k + '` (allowed: ' + SETTING_KEYS.join(', ') + ')');
-        if (k === 'method') { if (v !== 'alternating' && v !== 'joint') throw new Error('`method` must be "alternating" or "joint"'); }
-        else if (k === 'integrator') { if (v !== 'nuts' && v !== 'hmc') throw new Error('`integrator` must be "nuts" or "hmc"'); }
-        else if (!(typeof v === 'number' && Number.isSafeInteger(v) && v >= 0)) throw new Error('`' + k + '` must be a whole number ≥ 0');
+        if (SETTING_KEYS.indexOf(k) < 0) throw new Error(where + 'unknown setting `' + k + '` (allowed: ' + SETTING_KEYS.join(', ') + ')');
+        if (k === 'method') { if (v !== 'alternating' && v !== 'joint') throw new Error(where + '`method` must be "alternating" or "joint"'); }
+        else if (k === 'integrator') { if (v !== 'nuts' && v !== 'hmc') throw new Error(where + '`integrator` must be "nuts" or "hmc"'); }
+        else if (!(typeof v === 'number' && Number.isSafeInteger(v) && v >= 0)) throw new Error(where + '`' + k + '` must be a whole number ≥ 0');
         settings[k] = String(v);
       }
     }
-    const loaded = specToForm(obj.spec);
+    let loaded;
+    try { loaded = specToForm(obj.spec); } catch (e) { throw new Error(where + e.message); }
     Object.assign(loaded.settings, settings);
     return loaded;
+  }
+  // A share link's contents: model A, and model B when the link carries a comparison.
+  function validateShared(obj) {
+    const a = validateSharedModel(obj, '', ['spec', 'settings', 'b']);
+    const b = obj.b != null ? validateSharedModel(obj.b, 'model B: ', ['spec', 'settings']) : null;
+    return { a: a, b: b };
   }
 
   async function applyHash() {
@@ -1559,7 +1598,8 @@
         try { obj = JSON.parse(text); } catch (e) { throw new Error('the link does not hold valid JSON (' + e.message + ')'); }
         const loaded = validateShared(obj);
         if (state.active !== 'A') state.active = 'A';
-        replaceSlotModel('A', loaded, 'Opened a shared model');
+        if (loaded.b) replaceBothModels(loaded.a, loaded.b, 'Opened a shared comparison');
+        else replaceSlotModel('A', loaded.a, 'Opened a shared model');
         clean();
         return true;
       } catch (e) {
@@ -1670,7 +1710,7 @@
     let fromEmbed = false;
     if (!state.hadStorage && embeddedBundle && embeddedBundle.spec) {
       try {
-        const loaded = validateShared({ spec: embeddedBundle.spec, settings: embeddedBundle.settings || undefined });
+        const loaded = validateSharedModel({ spec: embeddedBundle.spec, settings: embeddedBundle.settings || undefined }, '', ['spec', 'settings']);
         state.slots.A = newSlot(loaded.form, loaded.settings);
         fromEmbed = true;
       } catch (e) {

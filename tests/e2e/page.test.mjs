@@ -114,6 +114,41 @@ test('a share link restores the spec and settings', async () => {
   await context.close();
 });
 
+test('a share link carries both models of a comparison, and names a bad model B', async () => {
+  const { page, context } = await openPage(browser);
+  await page.goto(server.origin + '/#demo=default-two-modes.json');
+  await ready(page);
+  const titleA = await page.inputValue(id('title-input'));
+  await page.click(id('slot-b'));
+  await page.click(id('b-copy'));
+  await page.fill(id('title-input'), 'Second opinion');
+  await page.fill(id('seed-input'), '9');
+  await page.click(id('share-button'));
+  await page.waitForFunction((sel) => { const el = document.querySelector(sel); return el && /#spec=/.test(el.value || el.textContent); }, id('share-link'));
+  const link = (await page.$eval(id('share-link'), (el) => el.value || el.textContent)).trim();
+  const other = await openPage(browser);
+  await other.page.goto(link);
+  await ready(other.page);
+  assert.equal(await other.page.inputValue(id('title-input')), titleA);
+  assert.equal(await other.page.isHidden(id('compare-card')), false, 'the comparison card shows');
+  await other.page.click(id('slot-b'));
+  assert.equal(await other.page.inputValue(id('title-input')), 'Second opinion');
+  assert.equal(await other.page.inputValue(id('seed-input')), '9');
+  await other.context.close();
+  // A link whose model B is malformed is refused with a message naming model B.
+  const good = { variables: [{ name: 'x' }], energy: 'x^2/2' };
+  const payload = JSON.stringify({ spec: good, b: { spec: good, settings: { seed: -1 } } });
+  const zlib = await import('node:zlib');
+  const bad = server.origin + '/#spec=' + zlib.deflateRawSync(Buffer.from(payload)).toString('base64url');
+  const third = await openPage(browser);
+  await third.page.goto(bad);
+  await ready(third.page);
+  const msg = await third.page.textContent(id('share-error'));
+  assert.match(msg, /model B: `seed` must be a whole number/);
+  await third.context.close();
+  await context.close();
+});
+
 test('the draws CSV parses with the right header and row count', async () => {
   const { page, context } = await openPage(browser);
   await page.goto(server.origin + '/#demo=default-two-modes.json');
