@@ -206,8 +206,7 @@ pub fn check_with_grid_budget(spec: &Spec, grid_work: f64) -> Result<CheckOutcom
 // `kiln run` and `kiln compare`.
 
 use crate::estimates::{
-    cross_checks, estimate, verdict, warnings, CrossCheck, Diagnostics, Estimates, ModeEstimate,
-    WeightedDraws,
+    cross_checks, estimate, verdict, warnings, CrossCheck, Estimates, WeightedDraws,
 };
 use crate::sampler::{Integrator, Method, RefitPolicy, SamplerOptions, Stepper};
 
@@ -306,35 +305,22 @@ pub fn run_settings(spec: &Spec, o: &Overrides) -> Result<RunSettings, KilnError
     Ok(r)
 }
 
-/// What `kiln run` reports.
+/// What `kiln run` reports: the run's identity and settings, the estimates (flattened into
+/// the same JSON object), the cross-checks and the messages.
 #[derive(Clone, Debug, Serialize)]
 pub struct RunOutcome {
     pub title: String,
     pub dimension: usize,
     pub unknowns: Vec<Unknown>,
     pub settings: RunSettings,
-    pub log_z: f64,
-    pub log_z_se: f64,
-    /// The method note's estimator without control variates.
-    pub log_z_plain: f64,
-    pub log_z_plain_se: f64,
-    /// What the control variates did (see `control`).
-    pub control_variates: Option<crate::estimates::ControlSummary>,
+    /// log Z, modes, moments and diagnostics (see `estimates::Estimates`).
+    #[serde(flatten)]
+    pub est: Estimates,
     pub laplace_log_z: f64,
-    pub is_log_z: f64,
-    pub is_log_z_se: f64,
     pub grid_log_z: Option<f64>,
     pub exact_log_z: Option<f64>,
     pub cross_checks: Vec<CrossCheck>,
     pub verdict: String,
-    pub modes: Vec<ModeEstimate>,
-    pub mean: Vec<f64>,
-    pub sd: Vec<f64>,
-    pub quantiles: Vec<[f64; 3]>,
-    pub rhat: Vec<f64>,
-    pub ess: Vec<f64>,
-    pub ess_chains: Vec<f64>,
-    pub diagnostics: Diagnostics,
     pub warnings: Vec<String>,
     pub notes: Vec<String>,
     pub seed: u64,
@@ -449,48 +435,17 @@ pub fn finish_run(
             })
             .collect()
     });
-    let Estimates {
-        log_z,
-        log_z_se,
-        log_z_plain,
-        log_z_plain_se,
-        control_variates,
-        is_log_z,
-        is_log_z_se,
-        modes,
-        mean,
-        sd,
-        quantiles,
-        rhat,
-        ess,
-        ess_chains,
-        diagnostics,
-    } = est;
     let outcome = RunOutcome {
         title: spec.title.clone(),
         dimension: p.target.dim(),
         unknowns: unknowns_of(spec),
         settings,
-        log_z,
-        log_z_se,
-        log_z_plain,
-        log_z_plain_se,
-        control_variates,
+        est,
         laplace_log_z,
-        is_log_z,
-        is_log_z_se,
         grid_log_z: grid_pair.map(|g| g.0),
         exact_log_z,
         cross_checks: checks,
         verdict: v,
-        modes,
-        mean,
-        sd,
-        quantiles,
-        rhat,
-        ess,
-        ess_chains,
-        diagnostics,
         warnings: warns,
         notes,
         seed: p.seed,
@@ -519,8 +474,8 @@ pub struct CompareOutcome {
 }
 
 pub fn compare(a: RunOutcome, b: RunOutcome) -> CompareOutcome {
-    let lbf = a.log_z - b.log_z;
-    let se = crate::maths::sqrt(a.log_z_se * a.log_z_se + b.log_z_se * b.log_z_se);
+    let lbf = a.est.log_z - b.est.log_z;
+    let se = crate::maths::sqrt(a.est.log_z_se * a.est.log_z_se + b.est.log_z_se * b.est.log_z_se);
     let mut warnings: Vec<String> = a.warnings.iter().map(|w| format!("A: {w}")).collect();
     warnings.extend(b.warnings.iter().map(|w| format!("B: {w}")));
     if a.verdict.starts_with("DISAGREEMENT") {

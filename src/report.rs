@@ -243,13 +243,13 @@ pub fn run_text(r: &crate::pipeline::RunOutcome) -> String {
         "  seed {}, {} chains × ({} warm-up + {} draws), method {:?}, integrator {:?}, {} energy evaluations",
         s.seed, s.chains, s.warmup, s.draws, s.method, s.integrator, r.gradient_evaluations
     );
-    let _ = writeln!(o, "\nlog Z = {}", pm(r.log_z, r.log_z_se));
-    if let Some(cv) = &r.control_variates {
+    let _ = writeln!(o, "\nlog Z = {}", pm(r.est.log_z, r.est.log_z_se));
+    if let Some(cv) = &r.est.control_variates {
         if cv.used {
             let _ = writeln!(
                 o,
                 "  without control variates {}; {}",
-                pm(r.log_z_plain, r.log_z_plain_se),
+                pm(r.est.log_z_plain, r.est.log_z_plain_se),
                 cv.note
             );
         } else {
@@ -269,7 +269,7 @@ pub fn run_text(r: &crate::pipeline::RunOutcome) -> String {
             format!("{:.4}", c.log_z),
             c.error.map_or("-".to_string(), |e| format!("{e:.1e}")),
             c.z_score
-                .map_or(format!("{:+.3} nats", r.log_z - c.log_z), |z| {
+                .map_or(format!("{:+.3} nats", r.est.log_z - c.log_z), |z| {
                     format!("{z:+.1} SE")
                 }),
             if c.error.is_some() && !c.agrees {
@@ -295,7 +295,7 @@ pub fn run_text(r: &crate::pipeline::RunOutcome) -> String {
         h.push("exact".into());
     }
     let mut rows = vec![h];
-    for (k, m) in r.modes.iter().take(30).enumerate() {
+    for (k, m) in r.est.modes.iter().take(30).enumerate() {
         let mut row = vec![format!(
             "{}{}",
             k + 1,
@@ -312,10 +312,10 @@ pub fn run_text(r: &crate::pipeline::RunOutcome) -> String {
         rows.push(row);
     }
     o.push_str(&table(&rows));
-    if r.modes.len() > 30 {
-        let _ = writeln!(o, "  … and {} more (see --json)", r.modes.len() - 30);
+    if r.est.modes.len() > 30 {
+        let _ = writeln!(o, "  … and {} more (see --json)", r.est.modes.len() - 30);
     }
-    if r.modes.iter().any(|m| m.found_by == "sampler") {
+    if r.est.modes.iter().any(|m| m.found_by == "sampler") {
         let _ = writeln!(o, "  + found by the chains, not by the optimiser");
     }
 
@@ -329,18 +329,18 @@ pub fn run_text(r: &crate::pipeline::RunOutcome) -> String {
     for (j, u) in r.unknowns.iter().enumerate() {
         rows.push(vec![
             u.name.clone(),
-            num(r.mean[j]),
-            num(r.sd[j]),
-            num(r.quantiles[j][0]),
-            num(r.quantiles[j][1]),
-            num(r.quantiles[j][2]),
-            format!("{:.3}", r.rhat[j]),
-            format!("{:.0}", r.ess[j]),
+            num(r.est.mean[j]),
+            num(r.est.sd[j]),
+            num(r.est.quantiles[j][0]),
+            num(r.est.quantiles[j][1]),
+            num(r.est.quantiles[j][2]),
+            format!("{:.3}", r.est.rhat[j]),
+            format!("{:.0}", r.est.ess[j]),
         ]);
     }
     o.push_str(&table(&rows));
 
-    let d = &r.diagnostics;
+    let d = &r.est.diagnostics;
     let _ = writeln!(o, "\nDiagnostics");
     let _ = writeln!(
         o,
@@ -385,8 +385,16 @@ pub fn run_text(r: &crate::pipeline::RunOutcome) -> String {
 pub fn compare_text(c: &crate::pipeline::CompareOutcome, name_a: &str, name_b: &str) -> String {
     let mut o = String::new();
     let _ = writeln!(o, "Kiln compare\n");
-    let _ = writeln!(o, "  A: {name_a}  log Z = {}", pm(c.a.log_z, c.a.log_z_se));
-    let _ = writeln!(o, "  B: {name_b}  log Z = {}", pm(c.b.log_z, c.b.log_z_se));
+    let _ = writeln!(
+        o,
+        "  A: {name_a}  log Z = {}",
+        pm(c.a.est.log_z, c.a.est.log_z_se)
+    );
+    let _ = writeln!(
+        o,
+        "  B: {name_b}  log Z = {}",
+        pm(c.b.est.log_z, c.b.est.log_z_se)
+    );
     let _ = writeln!(
         o,
         "\nlog Bayes factor log(Z_A / Z_B) = {}",

@@ -22,12 +22,12 @@ fn quick(seed: u64) -> Overrides {
 }
 
 fn assert_log_z(o: &RunOutcome, truth: f64, abs_tol: f64, what: &str) {
-    let err = (o.log_z - truth).abs();
+    let err = (o.est.log_z - truth).abs();
     assert!(
-        err <= 4.0 * o.log_z_se && err <= abs_tol,
+        err <= 4.0 * o.est.log_z_se && err <= abs_tol,
         "{what}: log Z {} ± {} vs {truth} (error {err:.4}); warnings {:?}",
-        o.log_z,
-        o.log_z_se,
+        o.est.log_z,
+        o.est.log_z_se,
         o.warnings
     );
 }
@@ -72,8 +72,8 @@ fn separated_mixture_with_unequal_weights() {
     );
     assert_log_z(&o, 4.4f64.ln(), 0.05, "mixture");
     let exact = o.exact_masses.clone().unwrap();
-    assert_eq!(o.modes.len(), 3);
-    for (m, e) in o.modes.iter().zip(&exact) {
+    assert_eq!(o.est.modes.len(), 3);
+    for (m, e) in o.est.modes.iter().zip(&exact) {
         assert!((m.mass - e).abs() < 0.02, "mass {} vs exact {e}", m.mass);
     }
     assert!(o.verdict.contains("agree"), "{}", o.verdict);
@@ -87,12 +87,12 @@ fn egg_crate_log_z() {
     let o = run_spec(spec_of_case(&c), quick(1));
     assert_log_z(&o, c["log_z"].as_f64().unwrap(), 0.1, "egg crate vs scipy");
     assert!(
-        (o.log_z - 235.88).abs() < 0.1,
+        (o.est.log_z - 235.88).abs() < 0.1,
         "egg crate vs published: {}",
-        o.log_z
+        o.est.log_z
     );
-    assert_eq!(o.modes.len(), 18);
-    assert!(o.modes.iter().all(|m| m.visited));
+    assert_eq!(o.est.modes.len(), 18);
+    assert!(o.est.modes.iter().all(|m| m.visited));
 }
 
 /// Two Gaussian shells (radius 2, width 0.1, centres (±3.5, 0), uniform prior on [−6, 6]²):
@@ -105,9 +105,9 @@ fn gaussian_shells_log_z() {
     let o = run_spec(spec_of_case(&c), quick(2));
     assert_log_z(&o, c["log_z"].as_f64().unwrap(), 0.1, "shells vs scipy");
     assert!(
-        (o.log_z + 1.75).abs() < 0.1,
+        (o.est.log_z + 1.75).abs() < 0.1,
         "shells vs published: {}",
-        o.log_z
+        o.est.log_z
     );
 }
 
@@ -206,6 +206,7 @@ fn check_rotated_product(d: usize, seed: u64) {
             .map(|i| (0..d).map(|j| h[i][j] * y[j]).sum())
             .collect();
         let hit = o
+            .est
             .modes
             .iter()
             .find(|m| m.location.iter().zip(&x).all(|(a, b)| (a - b).abs() < 0.3));
@@ -221,7 +222,7 @@ fn check_rotated_product(d: usize, seed: u64) {
     assert!(
         found_all,
         "a mode above 1 % mass was not found (D = {d}); {} modes",
-        o.modes.len()
+        o.est.modes.len()
     );
 }
 
@@ -257,14 +258,14 @@ fn plain_hmc_stays_in_one_mode_while_kiln_finds_the_masses() {
     let plain = kiln::pipeline::run_prepared(&spec, &p, None, opts, settings)
         .unwrap()
         .outcome;
-    let masses: Vec<f64> = plain.modes.iter().map(|m| m.mass).collect();
+    let masses: Vec<f64> = plain.est.modes.iter().map(|m| m.mass).collect();
     assert!(
         masses.iter().any(|m| *m > 0.999),
         "plain HMC moved between modes: {masses:?}"
     );
     let kiln_run = run_spec(serde_json::from_str(&spec_text).unwrap(), quick(9));
     let exact = kiln_run.exact_masses.clone().unwrap();
-    for (m, e) in kiln_run.modes.iter().zip(&exact) {
+    for (m, e) in kiln_run.est.modes.iter().zip(&exact) {
         assert!((m.mass - e).abs() < 0.02, "Kiln mass {} vs {e}", m.mass);
     }
 }
@@ -289,7 +290,7 @@ fn log_z_error_bar_covers_the_truth() {
                 ..Overrides::default()
             },
         );
-        if (o.log_z - truth).abs() <= 1.96 * o.log_z_se {
+        if (o.est.log_z - truth).abs() <= 1.96 * o.est.log_z_se {
             covered += 1;
         }
     }
@@ -318,10 +319,10 @@ fn error_bar_with_control_variates_covers_the_truth() {
                 ..Overrides::default()
             },
         );
-        if o.control_variates.as_ref().is_some_and(|c| c.used) {
+        if o.est.control_variates.as_ref().is_some_and(|c| c.used) {
             used += 1;
         }
-        if (o.log_z - truth).abs() <= 1.96 * o.log_z_se {
+        if (o.est.log_z - truth).abs() <= 1.96 * o.est.log_z_se {
             covered += 1;
         }
     }
@@ -350,7 +351,7 @@ fn joint_and_alternating_with_nuts_and_static_hmc() {
             );
             assert_log_z(&o, 3f64.ln(), 0.05, &format!("{method}/{integrator}"));
             let exact = o.exact_masses.clone().unwrap();
-            for (m, e) in o.modes.iter().zip(&exact) {
+            for (m, e) in o.est.modes.iter().zip(&exact) {
                 assert!(
                     (m.mass - e).abs() < 0.02,
                     "{method}/{integrator}: mass {} vs {e}",
@@ -420,9 +421,9 @@ fn extreme_widths_and_offsets() {
             quick(14),
         );
         assert!(
-            (o.log_z - truth).abs() < 1e-6 * (1.0 + truth.abs()),
+            (o.est.log_z - truth).abs() < 1e-6 * (1.0 + truth.abs()),
             "{energy}: {} vs {truth}",
-            o.log_z
+            o.est.log_z
         );
     }
 }
