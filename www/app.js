@@ -1441,17 +1441,24 @@
     download(slug(slot.form.title) + '.json', JSON.stringify(b.spec, null, 2) + '\n', 'application/json');
   }
 
+  // The single page holds model A and, when there is one, model B (as a share link does).
   async function saveSingle() {
-    const slot = activeSlot();
-    if (!slot || !single) return;
-    const b = buildSpec(slot);
-    if (b.errors.length) { notice(['The page cannot be saved until these are fixed:', el('pre', null, b.errors.join('\n'))], { bad: true }); return; }
+    const A = state.slots.A, B = state.slots.B;
+    if (!A || !single) return;
+    const ba = buildSpec(A);
+    const bb = B ? buildSpec(B) : null;
+    const errors = ba.errors.map(function (e) { return (B ? 'model A: ' : '') + e; })
+      .concat(bb ? bb.errors.map(function (e) { return 'model B: ' + e; }) : []);
+    if (errors.length) { notice(['The page cannot be saved until these are fixed:', el('pre', null, errors.join('\n'))], { bad: true }); return; }
     const btn = $('save-single');
     btn.disabled = true;
     try {
-      const html = await single.build({ spec: b.spec, settings: b.settings, title: slot.form.title.trim() || 'Kiln model' });
-      download(slug(slot.form.title) + '.html', html, 'text/html');
-      notice(['Saved a single page with the engine, the demos and this model inside. It opens from a file and needs no network.']);
+      const html = await single.build({
+        spec: ba.spec, settings: ba.settings, title: A.form.title.trim() || 'Kiln model',
+        b: bb ? { spec: bb.spec, settings: bb.settings } : undefined,
+      });
+      download(slug(A.form.title) + '.html', html, 'text/html');
+      notice(['Saved a single page with the engine, the demos and ' + (bb ? 'both models (A and B)' : 'this model') + ' inside. It opens from a file and needs no network.']);
     } catch (e) {
       notice(['The single page could not be made: ' + (e && e.message ? e.message : String(e))], { bad: true });
     } finally { btn.disabled = false; }
@@ -1705,13 +1712,17 @@
     setRunState('idle');
     wire();
     // A single-file page keeps its edits under its own key, so it opens first with its own model.
-    if (embeddedBundle) STORAGE_KEY += '.single.' + fnv(JSON.stringify([embeddedBundle.spec || null, embeddedBundle.settings || null]));
+    if (embeddedBundle) STORAGE_KEY += '.single.' + fnv(JSON.stringify([embeddedBundle.spec || null, embeddedBundle.settings || null].concat(embeddedBundle.b ? [embeddedBundle.b] : [])));
     state.hadStorage = restore();
     let fromEmbed = false;
     if (!state.hadStorage && embeddedBundle && embeddedBundle.spec) {
       try {
         const loaded = validateSharedModel({ spec: embeddedBundle.spec, settings: embeddedBundle.settings || undefined }, '', ['spec', 'settings']);
         state.slots.A = newSlot(loaded.form, loaded.settings);
+        if (embeddedBundle.b) {
+          const lb = validateSharedModel(embeddedBundle.b, 'model B: ', ['spec', 'settings']);
+          state.slots.B = newSlot(lb.form, lb.settings);
+        }
         fromEmbed = true;
       } catch (e) {
         notice(['The model saved in this page could not be read: ' + e.message], { bad: true });

@@ -4,7 +4,7 @@
 // (by hash), workers from blob: URLs, and nothing that connects anywhere.
 //
 //   KilnSingle.embedded()            -> the embedded bundle when this page is a single file, or null
-//   KilnSingle.build({spec, settings, title}) -> Promise(html text)
+//   KilnSingle.build({spec, settings, title, b}) -> Promise(html text); b: {spec, settings} of model B, or absent
 (function (global) {
   'use strict';
 
@@ -81,6 +81,7 @@
       demos: bundle.demos,
       spec: options.spec || null,
       settings: options.settings || null,
+      b: options.b || null,
     };
     const embedText = jsonForScript(embed);
     const css = sources['app.css'];

@@ -132,6 +132,7 @@ test('a share link carries both models of a comparison, and names a bad model B'
   assert.equal(await other.page.inputValue(id('title-input')), titleA);
   assert.equal(await other.page.isHidden(id('compare-card')), false, 'the comparison card shows');
   await other.page.click(id('slot-b'));
+  assert.ok(await other.page.isVisible(id('title-input')), 'model B is there, not an empty slot');
   assert.equal(await other.page.inputValue(id('title-input')), 'Second opinion');
   assert.equal(await other.page.inputValue(id('seed-input')), '9');
   await other.context.close();
@@ -181,6 +182,30 @@ test('the single-file page runs from file:// with no network', async () => {
   }
   assert.match(await single.page.textContent(id('logz-value')), /-?\d+\.\d+/);
   assert.equal(await single.page.inputValue(id('draws-input')), '400');
+  await single.context.close();
+});
+
+test('the single-file page keeps both models of a comparison', async () => {
+  const { page, context } = await openPage(browser);
+  await page.goto(server.origin + '/#demo=default-two-modes.json');
+  await ready(page);
+  await page.fill(id('draws-input'), '400');
+  const titleA = await page.inputValue(id('title-input'));
+  await page.click(id('slot-b'));
+  await page.click(id('b-copy'));
+  await page.fill(id('title-input'), 'Second opinion');
+  await page.fill(id('seed-input'), '9');
+  const file = await download(page, 'save-single');
+  await context.close();
+  const single = await openPage(browser);
+  await single.page.goto('file://' + file);
+  await ready(single.page);
+  assert.equal(await single.page.inputValue(id('draws-input')), '400');
+  assert.equal(await single.page.inputValue(id('title-input')), titleA);
+  await single.page.click(id('slot-b'));
+  assert.ok(await single.page.isVisible(id('title-input')), 'model B is there, not an empty slot');
+  assert.equal(await single.page.inputValue(id('title-input')), 'Second opinion');
+  assert.equal(await single.page.inputValue(id('seed-input')), '9');
   await single.context.close();
 });
 
