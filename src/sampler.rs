@@ -1642,10 +1642,10 @@ impl Stepper {
         // How often to make a Hamiltonian move. Window 0 makes one in every iteration (the step
         // size adapts); the following windows make them with the probability that the measured
         // acceptance of the independence moves suggests (when the base covers the target),
-        // except window TRIAL_WINDOW − 1, which
-        // makes one in every iteration again as the reference for the trial: after window
-        // TRIAL_WINDOW, the cheaper schedule is kept if its draws carried more effective draws of
-        // the log Z series per evaluation than the reference window's did.
+        // except window TRIAL_WINDOW − 1, which makes one in every iteration again as the
+        // reference for the trial: after window TRIAL_WINDOW, the cheaper schedule is kept if its
+        // draws carried more effective draws of the log Z series per evaluation than the
+        // reference window's did.
         if plan.is_tempered() && plan.options.independence {
             let (eff, under) = efficiency(&used, records);
             if w + 2 < TRIAL_WINDOW {
@@ -1663,17 +1663,15 @@ impl Stepper {
                 // target; otherwise its window keeps exploring with Hamiltonian moves.
                 self.full_efficiency = eff;
                 self.trial_skipped = under > UNDER_COVERED;
-                plan.p_gradient = if self.trial_skipped {
-                    1.0
-                } else {
-                    suggested_probability(records)
-                };
                 if self.trial_skipped {
+                    plan.p_gradient = 1.0;
                     plan.notes.push(format!(
                         "Hamiltonian moves in every iteration: {:.1}% of the target's weight lies where the base falls short of it by more than e² (above the {}% up to which mostly independence moves are tried)",
                         100.0 * under,
                         100.0 * UNDER_COVERED
                     ));
+                } else {
+                    plan.p_gradient = suggested_probability(records);
                 }
             } else if w == TRIAL_WINDOW && !self.trial_skipped {
                 let cheap = plan.p_gradient;
