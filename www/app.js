@@ -451,44 +451,36 @@
 
   // Replace the model in a slot, keeping the previous one for an undo.
   function replaceSlotModel(slotId, loaded, label) {
-    const old = state.slots[slotId];
-    const prev = old ? { form: JSON.parse(JSON.stringify(old.form)), settings: Object.assign({}, old.settings) } : null;
-    state.slots[slotId] = newSlot(loaded.form, loaded.settings);
-    if (prev) {
-      notice([label + ' (model ' + slotId + '). '], {
-        action: {
-          label: 'Undo', fn: function () {
-            if (state.running && state.running.slotId === slotId) return;
-            state.slots[slotId] = newSlot(prev.form, prev.settings);
-            afterModelReplaced(slotId);
-          },
-        },
-      });
-    }
-    afterModelReplaced(slotId);
+    const models = {};
+    models[slotId] = loaded;
+    replaceModels(models, label);
   }
-  // Replace both models at once (a shared comparison), with one undo that restores both.
-  function replaceBothModels(loadedA, loadedB, label) {
-    const keep = function (slot) { return slot ? { form: JSON.parse(JSON.stringify(slot.form)), settings: Object.assign({}, slot.settings) } : null; };
-    const prevA = keep(state.slots.A), prevB = keep(state.slots.B);
-    state.slots.A = newSlot(loadedA.form, loadedA.settings);
-    state.slots.B = newSlot(loadedB.form, loadedB.settings);
-    if (prevA || prevB) {
-      notice([label + ' (models A and B). '], {
+  // Replace the models in one or both slots ({A: loaded, B: loaded}), with one undo that
+  // restores every replaced slot as it was (an emptied slot B stays empty).
+  function replaceModels(models, label) {
+    const ids = Object.keys(models).sort();
+    const prev = {};
+    for (const id of ids) {
+      const old = state.slots[id];
+      prev[id] = old ? { form: JSON.parse(JSON.stringify(old.form)), settings: Object.assign({}, old.settings) } : null;
+      state.slots[id] = newSlot(models[id].form, models[id].settings);
+    }
+    if (ids.some(function (id) { return prev[id]; })) {
+      notice([label + ' (model' + (ids.length > 1 ? 's ' : ' ') + ids.join(' and ') + '). '], {
         action: {
           label: 'Undo', fn: function () {
-            if (state.running) return;
-            state.slots.A = prevA ? newSlot(prevA.form, prevA.settings) : newSlot();
-            state.slots.B = prevB ? newSlot(prevB.form, prevB.settings) : null;
-            if (!state.slots.B && state.active === 'B') state.active = 'A';
-            afterModelReplaced('A');
-            if (state.slots.B) afterModelReplaced('B');
+            if (state.running && ids.indexOf(state.running.slotId) >= 0) return;
+            for (const id of ids) {
+              const p = prev[id];
+              state.slots[id] = p ? newSlot(p.form, p.settings) : id === 'A' ? newSlot() : null;
+            }
+            if (ids.indexOf('B') >= 0 && !state.slots.B && state.active === 'B') state.active = 'A';
+            for (const id of ids) if (state.slots[id]) afterModelReplaced(id);
           },
         },
       });
     }
-    afterModelReplaced('A');
-    afterModelReplaced('B');
+    for (const id of ids) afterModelReplaced(id);
   }
   function afterModelReplaced(slotId) {
     if (state.active === slotId) writeFormToDom();
@@ -1441,24 +1433,35 @@
     download(slug(slot.form.title) + '.json', JSON.stringify(b.spec, null, 2) + '\n', 'application/json');
   }
 
-  // The single page holds model A and, when there is one, model B (as a share link does).
-  async function saveSingle() {
+  // What a share link and a single page carry: model A and, when there is one, model B, each as
+  // {spec, settings}; `errors` lists what must be fixed first (prefixed by the model when two).
+  function buildShared() {
     const A = state.slots.A, B = state.slots.B;
-    if (!A || !single) return;
     const ba = buildSpec(A);
     const bb = B ? buildSpec(B) : null;
     const errors = ba.errors.map(function (e) { return (B ? 'model A: ' : '') + e; })
       .concat(bb ? bb.errors.map(function (e) { return 'model B: ' + e; }) : []);
-    if (errors.length) { notice(['The page cannot be saved until these are fixed:', el('pre', null, errors.join('\n'))], { bad: true }); return; }
+    return {
+      errors: errors,
+      a: { spec: ba.spec, settings: ba.settings },
+      b: bb ? { spec: bb.spec, settings: bb.settings } : null,
+    };
+  }
+
+  async function saveSingle() {
+    const A = state.slots.A;
+    if (!A || !single) return;
+    const shared = buildShared();
+    if (shared.errors.length) { notice(['The page cannot be saved until these are fixed:', el('pre', null, shared.errors.join('\n'))], { bad: true }); return; }
     const btn = $('save-single');
     btn.disabled = true;
     try {
       const html = await single.build({
-        spec: ba.spec, settings: ba.settings, title: A.form.title.trim() || 'Kiln model',
-        b: bb ? { spec: bb.spec, settings: bb.settings } : undefined,
+        spec: shared.a.spec, settings: shared.a.settings, title: A.form.title.trim() || 'Kiln model',
+        b: shared.b || undefined,
       });
       download(slug(A.form.title) + '.html', html, 'text/html');
-      notice(['Saved a single page with the engine, the demos and ' + (bb ? 'both models (A and B)' : 'this model') + ' inside. It opens from a file and needs no network.']);
+      notice(['Saved a single page with the engine, the demos and ' + (shared.b ? 'both models (A and B)' : 'this model') + ' inside. It opens from a file and needs no network.']);
     } catch (e) {
       notice(['The single page could not be made: ' + (e && e.message ? e.message : String(e))], { bad: true });
     } finally { btn.disabled = false; }
@@ -1537,16 +1540,11 @@
   // The link carries model A and, when there is one, model B, so a comparison travels whole:
   // {spec, settings} for A, and b: {spec, settings} for B.
   async function copyShareLink() {
-    const A = state.slots.A, B = state.slots.B;
-    if (!A) return;
-    const ba = buildSpec(A);
-    const bb = B ? buildSpec(B) : null;
-    const errors = ba.errors.map(function (e) { return (B ? 'model A: ' : '') + e; })
-      .concat(bb ? bb.errors.map(function (e) { return 'model B: ' + e; }) : []);
-    if (errors.length) { notice(['Fix these before sharing:', el('pre', null, errors.join('\n'))], { bad: true }); return; }
-    const shared = { spec: ba.spec, settings: ba.settings };
-    if (bb) shared.b = { spec: bb.spec, settings: bb.settings };
-    const payload = JSON.stringify(shared);
+    if (!state.slots.A) return;
+    const shared = buildShared();
+    if (shared.errors.length) { notice(['Fix these before sharing:', el('pre', null, shared.errors.join('\n'))], { bad: true }); return; }
+    const bb = shared.b;
+    const payload = JSON.stringify(bb ? { spec: shared.a.spec, settings: shared.a.settings, b: bb } : shared.a);
     let link;
     try {
       const here = location.protocol === 'file:' ? location.href.split('#')[0] : location.origin + location.pathname;
@@ -1605,7 +1603,7 @@
         try { obj = JSON.parse(text); } catch (e) { throw new Error('the link does not hold valid JSON (' + e.message + ')'); }
         const loaded = validateShared(obj);
         if (state.active !== 'A') state.active = 'A';
-        if (loaded.b) replaceBothModels(loaded.a, loaded.b, 'Opened a shared comparison');
+        if (loaded.b) replaceModels({ A: loaded.a, B: loaded.b }, 'Opened a shared comparison');
         else replaceSlotModel('A', loaded.a, 'Opened a shared model');
         clean();
         return true;
@@ -1717,12 +1715,9 @@
     let fromEmbed = false;
     if (!state.hadStorage && embeddedBundle && embeddedBundle.spec) {
       try {
-        const loaded = validateSharedModel({ spec: embeddedBundle.spec, settings: embeddedBundle.settings || undefined }, '', ['spec', 'settings']);
-        state.slots.A = newSlot(loaded.form, loaded.settings);
-        if (embeddedBundle.b) {
-          const lb = validateSharedModel(embeddedBundle.b, 'model B: ', ['spec', 'settings']);
-          state.slots.B = newSlot(lb.form, lb.settings);
-        }
+        const loaded = validateShared({ spec: embeddedBundle.spec, settings: embeddedBundle.settings || undefined, b: embeddedBundle.b || undefined });
+        state.slots.A = newSlot(loaded.a.form, loaded.a.settings);
+        if (loaded.b) state.slots.B = newSlot(loaded.b.form, loaded.b.settings);
         fromEmbed = true;
       } catch (e) {
         notice(['The model saved in this page could not be read: ' + e.message], { bad: true });

@@ -36,6 +36,14 @@ async function runAndWait(page) {
   await page.waitForSelector('body[data-run-state="done"]', { timeout: 120000 });
 }
 
+/** Starts model B as a copy of A, titled 'Second opinion' with seed 9 (left on tab B). */
+async function startSecondOpinion(page) {
+  await page.click(id('slot-b'));
+  await page.click(id('b-copy'));
+  await page.fill(id('title-input'), 'Second opinion');
+  await page.fill(id('seed-input'), '9');
+}
+
 async function download(page, testid) {
   const [dl] = await Promise.all([page.waitForEvent('download'), page.click(id(testid))]);
   const file = path.join(ARTIFACTS, dl.suggestedFilename());
@@ -119,10 +127,7 @@ test('a share link carries both models of a comparison, and names a bad model B'
   await page.goto(server.origin + '/#demo=default-two-modes.json');
   await ready(page);
   const titleA = await page.inputValue(id('title-input'));
-  await page.click(id('slot-b'));
-  await page.click(id('b-copy'));
-  await page.fill(id('title-input'), 'Second opinion');
-  await page.fill(id('seed-input'), '9');
+  await startSecondOpinion(page);
   await page.click(id('share-button'));
   await page.waitForFunction((sel) => { const el = document.querySelector(sel); return el && /#spec=/.test(el.value || el.textContent); }, id('share-link'));
   const link = (await page.$eval(id('share-link'), (el) => el.value || el.textContent)).trim();
@@ -191,10 +196,7 @@ test('the single-file page keeps both models of a comparison', async () => {
   await ready(page);
   await page.fill(id('draws-input'), '400');
   const titleA = await page.inputValue(id('title-input'));
-  await page.click(id('slot-b'));
-  await page.click(id('b-copy'));
-  await page.fill(id('title-input'), 'Second opinion');
-  await page.fill(id('seed-input'), '9');
+  await startSecondOpinion(page);
   const file = await download(page, 'save-single');
   await context.close();
   const single = await openPage(browser);
