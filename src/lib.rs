@@ -1,50 +1,48 @@
 //! Kiln: modes, log evidence and cross-checks for multimodal densities.
 //!
-//! The crate is a pipeline; read the modules in this order:
+//! The crate is a pipeline of layers; read them in this order (the map, the chain of types
+//! between the layers and the invariants are in DEVELOPERS.md):
 //!
-//! 1. [`spec`]: the JSON spec → a validated spec (shape, names, bounds, data, mixtures).
-//! 2. [`syntax`]: formula text → syntax tree.
-//! 3. [`check`]: syntax tree → checked formula graph (names, arities, `sum` rules).
-//! 4. [`tape`]: checked formula → compiled tape with exact reverse-mode gradients.
-//! 5. [`target`]: tape (or mixture) + bounds → energy on the real line, in user units.
-//! 6. [`modes`]: multi-start BFGS → distinct modes with Hessians.
-//! 7. [`approx`]: modes → Laplace mixture base q and log ζ.
-//! 8. [`quadrature`]: an independent grid check of log Z for one or two unknowns.
-//! 9. [`pipeline`]: runs the stages for a command and collects the outcome.
-//! 10. [`report`]: outcome → text for people.
+//! 0. [`common`]: portable maths, the seeded generator, Gaussian mixtures and whitening,
+//!    statistics of draws, number formatting, errors with locations.
+//! 1. [`formula`]: formula text → syntax tree → resolved graph → compiled tape with gradients.
+//! 2. [`model`]: the JSON spec → a validated spec → the target density on the real line.
+//! 3. [`search`]: the target → its modes → the Laplace mixture (the base q and log ζ).
+//! 4. [`sample`]: continuously tempered HMC between the base and the target → kept records.
+//! 5. [`estimate`]: records → log Z ± SE, masses, moments, diagnostics; cross-checks, verdict.
+//! 6. [`run`]: the stages in order for `check`, `run`, `compare`, and stepwise sessions.
+//! 7. [`report`]: outcomes → text and CSV.
+//! 8. [`bench`]: `kiln bench`, Kiln against published methods at equal cost.
 //!
-//! Support: [`error`] (diagnostics with carets), [`maths`] (libm-backed scalar functions),
-//! [`gaussian`] (normal and Student-t mixtures), [`rng`] (the seeded portable generator).
-//! The command line (`src/main.rs`) and the WebAssembly layer (`wasm`) only translate.
+//! The command line (`src/main.rs`) and the WebAssembly layer (`wasm`, `wasm_bench`) sit above
+//! every layer and only translate. A module may use its own layer and the layers below it,
+//! never one above: [`LAYERS`] is the table, and `tests/layers.rs` reads every `crate::` path
+//! in `src/` and fails on an upward one.
 
-pub mod error;
-pub mod gaussian;
-pub mod maths;
-pub mod rng;
-
-pub mod approx;
-pub mod baselines;
 pub mod bench;
-pub mod check;
-pub mod control;
-pub mod estimates;
-pub mod hmc;
-pub mod modes;
-pub mod pipeline;
-pub mod quadrature;
-pub mod refit;
+pub mod common;
+pub mod estimate;
+pub mod formula;
+pub mod model;
 pub mod report;
-pub mod sampler;
-pub mod spec;
-pub mod syntax;
-pub mod tape;
-pub mod target;
-pub mod tempering;
+pub mod run;
+pub mod sample;
+pub mod search;
 
 #[cfg(target_arch = "wasm32")]
 pub mod wasm;
 #[cfg(target_arch = "wasm32")]
 pub mod wasm_bench;
 
-pub use error::{ErrorKind, KilnError};
-pub use spec::{parse_spec, Spec};
+/// The layers from the bottom up: each may import from itself and from the layers before it.
+/// The last entry holds the translating shells, which may import from every layer.
+pub const LAYERS: &[&str] = &[
+    "common", "formula", "model", "search", "sample", "estimate", "run", "report", "bench", "shell",
+];
+
+/// The top-level files that are shells (`main.rs` is the binary and imports the crate as
+/// `kiln::`).
+pub const SHELLS: &[&str] = &["wasm", "wasm_bench", "main"];
+
+pub use common::error::{ErrorKind, KilnError};
+pub use model::spec::{parse_spec, Spec};

@@ -1,8 +1,8 @@
 //! The `kiln` command line: reads files, calls the library, prints. It holds no statistics.
 
-use kiln::error::KilnError;
-use kiln::pipeline;
+use kiln::common::error::KilnError;
 use kiln::report;
+use kiln::run;
 use std::process::ExitCode;
 
 const USAGE: &str = "\
@@ -44,7 +44,7 @@ fn to_json<T: serde::Serialize>(v: &T) -> Result<String, KilnError> {
 struct Options {
     json: bool,
     draws_csv: Option<String>,
-    overrides: pipeline::Overrides,
+    overrides: run::Overrides,
 }
 
 fn number<T: std::str::FromStr>(flag: &str, v: Option<&String>) -> Result<T, KilnError> {
@@ -62,7 +62,7 @@ fn parse_options(args: &[String], csv: bool) -> Result<(Vec<String>, Options), K
     let mut o = Options {
         json: false,
         draws_csv: None,
-        overrides: pipeline::Overrides::default(),
+        overrides: run::Overrides::default(),
     };
     let mut files = Vec::new();
     let mut i = 0;
@@ -116,7 +116,7 @@ fn parse_options(args: &[String], csv: bool) -> Result<(Vec<String>, Options), K
                     "--integrator",
                     "--draws-csv",
                 ];
-                let hint = match kiln::error::nearest(s, known) {
+                let hint = match kiln::common::error::nearest(s, known) {
                     Some(k) => format!("did you mean `{k}`? `kiln --help` lists the options"),
                     None => "`kiln --help` lists the options".to_string(),
                 };
@@ -129,7 +129,7 @@ fn parse_options(args: &[String], csv: bool) -> Result<(Vec<String>, Options), K
     Ok((files, o))
 }
 
-fn run(args: &[String]) -> Result<String, KilnError> {
+fn dispatch(args: &[String]) -> Result<String, KilnError> {
     let Some(cmd) = args.first() else {
         return Err(KilnError::usage("no command given")
             .with_hint("try `kiln check SPEC.json`; `kiln --help` lists the commands"));
@@ -144,7 +144,7 @@ fn run(args: &[String]) -> Result<String, KilnError> {
                     .with_hint("kiln check SPEC.json [--json]"));
             }
             let spec = read_spec(&files[0])?;
-            let outcome = pipeline::check(&spec)?;
+            let outcome = run::check(&spec)?;
             if opts.json {
                 to_json(&outcome)
             } else {
@@ -158,9 +158,9 @@ fn run(args: &[String]) -> Result<String, KilnError> {
                     .with_hint("kiln run SPEC.json [options]"));
             }
             let spec = read_spec(&files[0])?;
-            let result = pipeline::run(&spec, &opts.overrides)?;
+            let result = run::run(&spec, &opts.overrides)?;
             if let Some(path) = &opts.draws_csv {
-                std::fs::write(path, result.draws_csv())
+                std::fs::write(path, report::run_draws_csv(&result))
                     .map_err(|e| KilnError::usage(format!("cannot write `{path}`: {e}")))?;
             }
             if opts.json {
@@ -177,9 +177,9 @@ fn run(args: &[String]) -> Result<String, KilnError> {
                         .with_hint("kiln compare A.json B.json [options]"),
                 );
             }
-            let a = pipeline::run(&read_spec(&files[0])?, &opts.overrides)?;
-            let b = pipeline::run(&read_spec(&files[1])?, &opts.overrides)?;
-            let c = pipeline::compare(a.outcome, b.outcome);
+            let a = run::run(&read_spec(&files[0])?, &opts.overrides)?;
+            let b = run::run(&read_spec(&files[1])?, &opts.overrides)?;
+            let c = run::compare(a.outcome, b.outcome);
             if opts.json {
                 to_json(&c)
             } else {
@@ -189,7 +189,7 @@ fn run(args: &[String]) -> Result<String, KilnError> {
         "bench" => kiln::bench::command(&args[1..]),
         other => {
             let known = ["check", "run", "compare"];
-            let hint = match kiln::error::nearest(other, known) {
+            let hint = match kiln::common::error::nearest(other, known) {
                 Some(k) => format!("did you mean `kiln {k}`?"),
                 None => "`kiln --help` lists the commands".to_string(),
             };
@@ -200,7 +200,7 @@ fn run(args: &[String]) -> Result<String, KilnError> {
 
 fn main() -> ExitCode {
     let args: Vec<String> = std::env::args().skip(1).collect();
-    match run(&args) {
+    match dispatch(&args) {
         Ok(out) => {
             println!("{}", out.trim_end());
             ExitCode::SUCCESS

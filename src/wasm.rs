@@ -6,9 +6,9 @@
 //! never a panic: a panic hook turns any remaining panic into a console error the page shows.
 //! Must not: compute anything the native command line would not compute the same way.
 
-use crate::error::KilnError;
-use crate::pipeline::{self, Overrides, Session};
-use crate::sampler::{Record, Step};
+use crate::common::error::KilnError;
+use crate::run::{self, Overrides, Session};
+use crate::sample::{Record, Step};
 use serde::Serialize;
 use wasm_bindgen::prelude::*;
 
@@ -93,7 +93,7 @@ extern "C" {
 #[wasm_bindgen]
 pub fn check_spec(spec_json: &str) -> Result<JsValue, JsValue> {
     let spec = spec_of(spec_json)?;
-    let outcome = pipeline::check(&spec).map_err(|e| to_js_error(&e))?;
+    let outcome = run::check(&spec).map_err(|e| to_js_error(&e))?;
     to_js(&outcome)
 }
 
@@ -112,7 +112,7 @@ pub fn log_density_grid(
     ny: usize,
 ) -> Result<Vec<f64>, JsValue> {
     let spec = spec_of(spec_json)?;
-    pipeline::log_density_grid(&spec, ix, iy, (xmin, xmax), (ymin, ymax), nx, ny)
+    run::log_density_grid(&spec, ix, iy, (xmin, xmax), (ymin, ymax), nx, ny)
         .map_err(|e| to_js_error(&e))
 }
 
@@ -126,7 +126,7 @@ pub fn version() -> String {
 #[wasm_bindgen]
 pub struct RunSession {
     session: Session,
-    result: Option<pipeline::RunResult>,
+    result: Option<run::RunResult>,
 }
 
 #[wasm_bindgen]
@@ -214,7 +214,7 @@ impl RunSession {
         to_js(&self.session.progress())
     }
 
-    fn done(&self) -> Result<&pipeline::RunResult, JsValue> {
+    fn done(&self) -> Result<&run::RunResult, JsValue> {
         self.result.as_ref().ok_or_else(|| {
             to_js_error(
                 &KilnError::usage("the run has not finished yet")
@@ -232,6 +232,6 @@ impl RunSession {
     }
 
     pub fn draws_csv(&self) -> Result<String, JsValue> {
-        Ok(self.done()?.draws_csv())
+        Ok(crate::report::run_draws_csv(self.done()?))
     }
 }

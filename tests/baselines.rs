@@ -10,11 +10,11 @@
 // Reference values use the platform maths library on purpose: an independent implementation.
 #![allow(clippy::disallowed_methods)]
 
-use kiln::baselines::{
-    annealed_importance_sampling, importance_sampling, parallel_tempering, plain_nuts, Outcome,
+use kiln::bench::baselines::{
+    annealed_importance_sampling, importance_sampling, parallel_tempering, plain_nuts, BaselineRun,
 };
-use kiln::bench::Groups;
-use kiln::tempering::Base;
+use kiln::bench::targets::Groups;
+use kiln::sample::tempering::Base;
 use std::sync::Arc;
 
 struct Case {
@@ -62,9 +62,9 @@ fn cases() -> Vec<Case> {
     ]
 }
 
-fn prepared(c: &Case) -> (kiln::pipeline::Prepared, Base) {
+fn prepared(c: &Case) -> (kiln::run::Prepared, Base) {
     let spec = kiln::parse_spec(c.name, c.spec).unwrap_or_else(|e| panic!("{}", e.render()));
-    let p = kiln::pipeline::prepare(&spec).unwrap_or_else(|e| panic!("{}", e.render()));
+    let p = kiln::run::prepare(&spec).unwrap_or_else(|e| panic!("{}", e.render()));
     let base = Base {
         q: Arc::new(p.laplace.base.clone()),
         log_zeta: p.laplace.log_zeta,
@@ -72,7 +72,7 @@ fn prepared(c: &Case) -> (kiln::pipeline::Prepared, Base) {
     (p, base)
 }
 
-fn check_log_z(what: &str, o: &Outcome, truth: f64, budget: u64) {
+fn check_log_z(what: &str, o: &BaselineRun, truth: f64, budget: u64) {
     let err = o.log_z - truth;
     assert!(
         o.log_z_se.is_finite() && o.log_z_se > 0.0,

@@ -18,8 +18,7 @@ fn every_bad_input_is_a_clear_error_and_the_objects_are_recorded() {
     for c in &cases {
         let name = c["name"].as_str().unwrap();
         let spec = c["spec"].as_str().unwrap();
-        let result =
-            kiln::parse_spec("spec", spec).and_then(|s| kiln::pipeline::check(&s).map(|_| ()));
+        let result = kiln::parse_spec("spec", spec).and_then(|s| kiln::run::check(&s).map(|_| ()));
         let err = match result {
             Err(e) => e,
             Ok(()) => panic!("case `{name}` was accepted"),

@@ -5,8 +5,8 @@
 // Hand-derived values use the platform maths library on purpose: an independent implementation.
 #![allow(clippy::disallowed_methods)]
 
-use kiln::rng::{Purpose, Stream};
-use kiln::target::Target;
+use kiln::common::rng::{Purpose, Stream};
+use kiln::model::target::Target;
 
 fn target(spec: &str) -> Target {
     let spec = kiln::parse_spec("test", spec).unwrap_or_else(|e| panic!("{}", e.render()));

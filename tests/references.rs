@@ -2,7 +2,7 @@
 //! log Z computed by scipy (script and values in `tests/reference/`), and exact identities.
 //!
 //! Every spec is written here as JSON text and goes through the public path
-//! `kiln::parse_spec` → `kiln::pipeline::check`, exactly as the command line uses it.
+//! `kiln::parse_spec` → `kiln::run::check`, exactly as the command line uses it.
 //!
 //! Tolerances.
 //! * Grid quadrature against scipy: 2e-3 nats. Kiln's grid stops refining when two successive
@@ -20,7 +20,7 @@
 //!   components below are at least 8 standard deviations apart (a neighbour's tail at a mode is
 //!   below e^-30 of its density), so 1e-5 nats.
 
-use kiln::pipeline::{check, CheckOutcome};
+use kiln::run::{check, CheckOutcome};
 use serde_json::{json, Value};
 use std::f64::consts::PI;
 
@@ -386,7 +386,7 @@ fn check_separated_mixture(components: Value, means: &[Vec<f64>], weights: &[f64
         o.modes.iter().map(|m| &m.location).collect::<Vec<_>>()
     );
     for (mean, w) in means.iter().zip(weights) {
-        let dist = |m: &kiln::pipeline::ModeSummary| -> f64 {
+        let dist = |m: &kiln::run::ModeSummary| -> f64 {
             m.location
                 .iter()
                 .zip(mean)

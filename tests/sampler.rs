@@ -3,7 +3,7 @@
 // Reference values use the platform maths library on purpose: an independent implementation.
 #![allow(clippy::disallowed_methods)]
 
-use kiln::pipeline::{run, Overrides, RunOutcome};
+use kiln::run::{run, Overrides, RunOutcome};
 use serde_json::{json, Value};
 
 fn run_spec(spec: Value, o: Overrides) -> RunOutcome {
@@ -246,16 +246,16 @@ fn plain_hmc_stays_in_one_mode_while_kiln_finds_the_masses() {
         {"weight": 1.0, "mean": [6.0], "sd": [0.5]}]})
     .to_string();
     let spec = kiln::parse_spec("t", &spec_text).unwrap();
-    let p = kiln::pipeline::prepare(&spec).unwrap();
+    let p = kiln::run::prepare(&spec).unwrap();
     // Plain NUTS on the target: β fixed at 1, no independence moves, no tempering.
-    let mut opts = kiln::sampler::SamplerOptions::new(9);
+    let mut opts = kiln::sample::SamplerOptions::new(9);
     opts.fixed_beta = Some(1.0);
     opts.independence = false;
     opts.chains = 1;
     opts.warmup = 300;
     opts.draws = 2000;
-    let settings = kiln::pipeline::run_settings(&spec, &Overrides::default()).unwrap();
-    let plain = kiln::pipeline::run_prepared(&spec, &p, None, opts, settings)
+    let settings = kiln::run::run_settings(&spec, &Overrides::default()).unwrap();
+    let plain = kiln::run::run_prepared(&spec, &p, None, opts, settings)
         .unwrap()
         .outcome;
     let masses: Vec<f64> = plain.est.modes.iter().map(|m| m.mass).collect();

@@ -4,7 +4,7 @@
 //! wasm-bindgen-test-runner, repeats the run in WebAssembly and compares byte for byte.
 #![cfg(target_arch = "wasm32")]
 
-use kiln::pipeline::{run, Overrides};
+use kiln::run::{run, Overrides};
 use wasm_bindgen_test::wasm_bindgen_test;
 
 const SPEC: &str = include_str!("../demo-targets/default-two-modes.json");

@@ -24,7 +24,7 @@ fuzz_target!(|data: &[u8]| {
             return;
         }
     };
-    match kiln::target::Target::from_spec(&spec) {
+    match kiln::model::target::Target::from_spec(&spec) {
         Ok(t) => {
             let mut ev = t.evaluator();
             let mut g = [0.0; 2];

@@ -11,7 +11,7 @@ fuzz_target!(|data: &[u8]| {
             if spec.dimension() <= 3 && spec.data_rows <= 64 {
                 let mut spec = spec;
                 spec.settings.starts = Some(4);
-                match kiln::pipeline::check_with_grid_budget(&spec, 2e7) {
+                match kiln::run::check_with_grid_budget(&spec, 2e7) {
                     Ok(_) => {}
                     Err(e) => {
                         let _ = e.render();

@@ -6,9 +6,9 @@
 //! passed in, because `std::time::Instant` does not exist on wasm32-unknown-unknown.
 //! Must not: read files or the clock itself.
 
-use crate::maths::{exp, ln, log_sum_exp};
-use crate::rng::{Purpose, Stream};
-use crate::tape::{DataTable, Evaluator, Tape};
+use crate::common::maths::{exp, ln, log_sum_exp};
+use crate::common::rng::{Purpose, Stream};
+use crate::formula::tape::{DataTable, Evaluator, Tape};
 use std::hint::black_box;
 use std::sync::Arc;
 
@@ -46,8 +46,8 @@ fn compile(text: &str, vars: &[String], data: &[(&str, Vec<f64>)]) -> Evaluator 
     let table = DataTable::of(&columns);
     // The formulas are constants of this module, never user input; the benchmark tests run them,
     // so these `expect`s cannot fire.
-    let prog = crate::syntax::parse("energy", text).expect("benchmark formula parses");
-    let graph = crate::check::check("energy", text, &prog, vars, &names, table.rows)
+    let prog = crate::formula::syntax::parse("energy", text).expect("benchmark formula parses");
+    let graph = crate::formula::resolve::resolve("energy", text, &prog, vars, &names, table.rows)
         .expect("benchmark formula checks");
     let tape = Tape::compile(&graph, vars.len(), &table);
     Evaluator::new(Arc::new(tape))
@@ -67,7 +67,7 @@ fn egg_crate_hand(v: &[f64], g: &mut [f64], _: &[f64]) -> f64 {
     let a4 = a2 * a2;
     g[0] = 2.5 * a4 * sx * cy;
     g[1] = 2.5 * a4 * cx * sy;
-    -(a4 * a) + 2.0 * ln(10.0 * crate::maths::PI)
+    -(a4 * a) + 2.0 * ln(10.0 * crate::common::maths::PI)
 }
 
 /// A Gaussian likelihood with unknown mean and sd, summed over the data column `y`.
@@ -86,7 +86,7 @@ fn gaussian_sum_hand(v: &[f64], g: &mut [f64], y: &[f64]) -> f64 {
     let n = y.len() as f64;
     g[0] = dmu;
     g[1] = dsig + n * inv;
-    e + n * (ln(sigma) + 0.5 * crate::maths::LN_2PI)
+    e + n * (ln(sigma) + 0.5 * crate::common::maths::LN_2PI)
 }
 
 /// Per factor of the rotated product: weights and means of its four N(·, 0.5²) components.
@@ -150,7 +150,7 @@ fn rotated_8_hand(x: &[f64], g: &mut [f64], h: &[f64]) -> f64 {
         ln(FACTOR_WEIGHTS[2]),
         ln(FACTOR_WEIGHTS[3]),
     ];
-    let norm = 0.5 * ln(2.0 * crate::maths::PI * FACTOR_SD * FACTOR_SD);
+    let norm = 0.5 * ln(2.0 * crate::common::maths::PI * FACTOR_SD * FACTOR_SD);
     let mut e = 0.0;
     let mut dy = [0.0; D];
     for i in 0..D {
@@ -185,8 +185,8 @@ fn rotated_8_hand(x: &[f64], g: &mut [f64], h: &[f64]) -> f64 {
 pub fn faithful_eruptions() -> Vec<f64> {
     // FAITHFUL_SPEC is a file compiled into the binary (bench/targets/), not user input, and the
     // benchmark tests parse it, so these `expect`s cannot fire.
-    let spec: serde_json::Value =
-        serde_json::from_str(crate::bench::FAITHFUL_SPEC).expect("the Faithful spec is JSON");
+    let spec: serde_json::Value = serde_json::from_str(crate::bench::targets::FAITHFUL_SPEC)
+        .expect("the Faithful spec is JSON");
     spec["data"]["eruptions"]
         .as_array()
         .expect("eruptions column")
@@ -208,7 +208,7 @@ fn cases() -> Vec<Case> {
         tape: compile(EGG_CRATE, &xy, &[]),
         hand: egg_crate_hand,
         data: Vec::new(),
-        points: points(2, 0.0, 10.0 * crate::maths::PI),
+        points: points(2, 0.0, 10.0 * crate::common::maths::PI),
         dim: 2,
         rows: 0,
     };

@@ -1,0 +1,96 @@
+//! Number and table formatting for everything Kiln prints: reports, notes, warnings, verdicts
+//! and error hints.
+//!
+//! Owns: [`num`] (short numbers), [`decimals4`] (log Z values), [`pm`] (value ± error),
+//! [`table`] (aligned text columns).
+//! Must not: decide what to say (callers do), or know about any stage's types.
+
+use std::fmt::Write;
+
+/// A number in at most about six significant digits, in plain or scientific notation.
+pub fn num(v: f64) -> String {
+    if v.is_nan() {
+        return "NaN".into();
+    }
+    if v.is_infinite() {
+        return if v > 0.0 { "inf".into() } else { "-inf".into() };
+    }
+    if v == 0.0 {
+        return "0".into();
+    }
+    let a = v.abs();
+    if (1e-4..1e6).contains(&a) {
+        let decimals = (5 - libm::floor(libm::log10(a)) as i32).clamp(0, 9) as usize;
+        let s = format!("{v:.decimals$}");
+        if s.contains('.') {
+            s.trim_end_matches('0').trim_end_matches('.').to_string()
+        } else {
+            s
+        }
+    } else {
+        format!("{v:.4e}")
+    }
+}
+
+/// A log Z value with four decimals.
+pub fn decimals4(v: f64) -> String {
+    if v.is_finite() {
+        format!("{v:.4}")
+    } else {
+        num(v)
+    }
+}
+
+/// Pads every column of `rows` to its widest cell.
+pub fn table(rows: &[Vec<String>]) -> String {
+    let cols = rows.iter().map(|r| r.len()).max().unwrap_or(0);
+    let widths: Vec<usize> = (0..cols)
+        .map(|c| {
+            rows.iter()
+                .filter_map(|r| r.get(c))
+                .map(|s| s.chars().count())
+                .max()
+                .unwrap_or(0)
+        })
+        .collect();
+    let mut out = String::new();
+    for r in rows {
+        let line: Vec<String> = r
+            .iter()
+            .enumerate()
+            .map(|(c, s)| format!("{s:>w$}", w = widths[c]))
+            .collect();
+        let _ = writeln!(out, "  {}", line.join("  ").trim_end());
+    }
+    out
+}
+
+/// `x ± e` with the error's precision.
+pub fn pm(v: f64, e: f64) -> String {
+    if !v.is_finite() {
+        return num(v);
+    }
+    if !(e.is_finite() && e > 0.0) {
+        return format!("{v:.4}");
+    }
+    if e < 5e-5 {
+        return format!("{v:.4} ± {e:.1e}");
+    }
+    let digits = (-libm::floor(libm::log10(e)) as i32 + 1).clamp(1, 8) as usize;
+    format!("{v:.digits$} ± {e:.digits$}")
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn numbers_are_short_and_readable() {
+        assert_eq!(num(1.23456789), "1.23457");
+        assert_eq!(num(-0.5), "-0.5");
+        assert_eq!(num(235.856), "235.856");
+        assert_eq!(num(1e-9), "1.0000e-9");
+        assert_eq!(num(31.4), "31.4");
+        assert_eq!(num(2.0), "2");
+    }
+}
