@@ -1,7 +1,10 @@
 //! Tests of the tape: hand-derived values, exact identities, and a reference evaluator written
 //! here that walks the checked graph directly, row by row for sums, with gradients by
 //! forward-mode dual numbers (derivative rules written out below, independently of the tape's).
+//! (Longer than the other files: one test per specialisation and rewrite of the compiler, all
+//! against the one reference evaluator, which is kept in the same file.)
 
+use super::eval::{powi_small, powi_with_slope};
 use super::*;
 use crate::common::rng::{Purpose, Stream};
 use crate::formula::resolve::resolve;
