@@ -37,7 +37,7 @@ function fail(path, index, text, why) {
  * One module's source -> {imports: [{from, names}], exports: [names], body}: the body is the
  * source with its imports taken out and the `export ` keywords dropped.
  */
-export function parseModule(path, source) {
+function parseModule(path, source) {
   const imports = [];
   let body = source.replace(IMPORT, function (whole, list, from, index) {
     const names = list.split(',').map(function (s) { return s.trim(); }).filter(function (s) { return s.length; });

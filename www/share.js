@@ -12,7 +12,7 @@ import { SETTING_KEYS, formToSpec, specToForm } from './spec-form.js';
 import { bytesToBase64url, base64urlToBytes } from './base64.js';
 
 /** The most a link may expand to. */
-export const SHARE_LIMIT = 64 * 1024 * 1024;
+const SHARE_LIMIT = 64 * 1024 * 1024;
 
 /**
  * What a share link and a single page carry: model A and, when there is one, model B, each as
