@@ -22,4 +22,13 @@ const out = fs.readdirSync(dir).filter(f => f.endsWith(".json")).sort()
   .map(f => ({ file: f, spec: JSON.parse(fs.readFileSync(dir + "/" + f, "utf8")) }));
 fs.writeFileSync("www/pkg/demos.json", JSON.stringify(out));
 '
+# The page's ES modules are bundled into one classic script by the page itself when it is saved
+# as a single file (www/bundle.js). Check here that they bundle: the bundler refuses, naming
+# file and line, any module syntax it does not handle.
+node --input-type=module -e '
+import fs from "node:fs";
+import { bundleModules } from "./www/bundle.js";
+const b = await bundleModules("main.js", (p) => fs.readFileSync("www/" + p, "utf8"));
+console.log("www: " + b.modules.length + " modules bundle for the single-file page");
+'
 echo "built www/pkg"

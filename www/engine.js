@@ -1,7 +1,11 @@
 // Kiln worker orchestration. The main thread never runs WebAssembly: every engine call goes to
 // a classic worker (worker.js). This file knows the step/absorb protocol of ENGINE-API.md.
 //
-//   const engine = KilnEngine.create(options);
+// Owns: the workers (a helper for checks and grids, one per share of the chains during a run)
+// and the messages to them. Must not touch: the DOM or the page state; it reports through the
+// callbacks and promises below.
+//
+//   const engine = createEngine(options);
 //     options.workerUrl     URL of the worker script (default 'worker.js'), or
 //     options.workerSource  the worker's full script text (engine glue + worker.js) and
 //     options.wasmBytes     the engine's .wasm as an ArrayBuffer: workers are then created from
@@ -13,200 +17,195 @@
 //                                         elapsed, remaining, stepKind, progress, settings}
 // Failures reject with the engine's plain error object {kind, message, rendered, ...};
 // a cancelled run rejects with {kind: 'cancelled'}.
-(function (global) {
-  'use strict';
 
-  function internalError(message) {
-    return { kind: 'internal', message: message, location: null, hint: null,
-      rendered: 'error: ' + message + '\n' };
+function internalError(message) {
+  return { kind: 'internal', message: message, location: null, hint: null,
+    rendered: 'error: ' + message + '\n' };
+}
+
+// One worker and its pending calls, matched by id.
+function Channel(factory, initMessage, initTransfer) {
+  this.worker = factory();
+  this.pending = new Map();
+  this.nextId = 1;
+  this.dead = false;
+  const self = this;
+  this.worker.onmessage = function (ev) {
+    const msg = ev.data || {};
+    const p = self.pending.get(msg.id);
+    if (!p) return;
+    self.pending.delete(msg.id);
+    if (msg.type === 'error') p.reject(msg.error);
+    else p.resolve(msg);
+  };
+  this.worker.onerror = function (ev) {
+    ev.preventDefault();
+    self.failAll(internalError('the engine worker failed to start or crashed' +
+      (ev.message ? ': ' + ev.message : '') + '. Was www/pkg built (scripts/build-web.sh)?'));
+  };
+  this.worker.onmessageerror = function () {
+    self.failAll(internalError('a message from the engine worker could not be read'));
+  };
+  this.ready = this.call(initMessage, initTransfer);
+  this.ready.catch(function () { /* reported by the calls that follow */ });
+}
+Channel.prototype.call = function (msg, transfer) {
+  if (this.dead) return Promise.reject({ kind: 'cancelled', message: 'stopped', rendered: '' });
+  const id = this.nextId++;
+  const self = this;
+  return new Promise(function (resolve, reject) {
+    self.pending.set(id, { resolve: resolve, reject: reject });
+    self.worker.postMessage(Object.assign({}, msg, { id: id }), transfer || []);
+  });
+};
+Channel.prototype.failAll = function (err) {
+  const pend = Array.from(this.pending.values());
+  this.pending.clear();
+  for (const p of pend) p.reject(err);
+};
+Channel.prototype.terminate = function () {
+  if (this.dead) return;
+  this.dead = true;
+  this.worker.terminate();
+  this.failAll({ kind: 'cancelled', message: 'stopped', rendered: '' });
+};
+
+export function createEngine(options) {
+  options = options || {};
+  let blobUrl = null;
+  function factory() {
+    if (options.workerSource) {
+      if (!blobUrl) {
+        blobUrl = URL.createObjectURL(new Blob([options.workerSource], { type: 'text/javascript' }));
+      }
+      return new Worker(blobUrl);
+    }
+    return new Worker(options.workerUrl || 'worker.js');
+  }
+  function newChannel() {
+    if (options.wasmBytes) {
+      const copy = options.wasmBytes.slice(0);
+      return new Channel(factory, { type: 'init', wasm: copy }, [copy]);
+    }
+    return new Channel(factory, { type: 'init' });
   }
 
-  // One worker and its pending calls, matched by id.
-  function Channel(factory, initMessage, initTransfer) {
-    this.worker = factory();
-    this.pending = new Map();
-    this.nextId = 1;
-    this.dead = false;
-    const self = this;
-    this.worker.onmessage = function (ev) {
-      const msg = ev.data || {};
-      const p = self.pending.get(msg.id);
-      if (!p) return;
-      self.pending.delete(msg.id);
-      if (msg.type === 'error') p.reject(msg.error);
-      else p.resolve(msg);
-    };
-    this.worker.onerror = function (ev) {
-      ev.preventDefault();
-      self.failAll(internalError('the engine worker failed to start or crashed' +
-        (ev.message ? ': ' + ev.message : '') + '. Was www/pkg built (scripts/build-web.sh)?'));
-    };
-    this.worker.onmessageerror = function () {
-      self.failAll(internalError('a message from the engine worker could not be read'));
-    };
-    this.ready = this.call(initMessage, initTransfer);
-    this.ready.catch(function () { /* reported by the calls that follow */ });
-  }
-  Channel.prototype.call = function (msg, transfer) {
-    if (this.dead) return Promise.reject({ kind: 'cancelled', message: 'stopped', rendered: '' });
-    const id = this.nextId++;
-    const self = this;
-    return new Promise(function (resolve, reject) {
-      self.pending.set(id, { resolve: resolve, reject: reject });
-      self.worker.postMessage(Object.assign({}, msg, { id: id }), transfer || []);
+  // The helper answers check_spec and log_density_grid. If it is stuck on an old request when
+  // a new one arrives, it is replaced (a new worker starts in milliseconds).
+  let helper = null;
+  let helperBusy = 0;
+  let helperBusySince = 0;
+  function helperCall(msg, preempt) {
+    const now = performance.now();
+    if (helper && preempt && helperBusy > 0 && now - helperBusySince > 1500) {
+      helper.terminate();
+      helper = null;
+    }
+    if (!helper) { helper = newChannel(); helperBusy = 0; }
+    const ch = helper;
+    if (helperBusy === 0) helperBusySince = now;
+    helperBusy++;
+    return ch.call(msg).finally(function () {
+      if (ch === helper) { helperBusy--; }
     });
-  };
-  Channel.prototype.failAll = function (err) {
-    const pend = Array.from(this.pending.values());
-    this.pending.clear();
-    for (const p of pend) p.reject(err);
-  };
-  Channel.prototype.terminate = function () {
-    if (this.dead) return;
-    this.dead = true;
-    this.worker.terminate();
-    this.failAll({ kind: 'cancelled', message: 'stopped', rendered: '' });
-  };
-
-  function create(options) {
-    options = options || {};
-    let blobUrl = null;
-    function factory() {
-      if (options.workerSource) {
-        if (!blobUrl) {
-          blobUrl = URL.createObjectURL(new Blob([options.workerSource], { type: 'text/javascript' }));
-        }
-        return new Worker(blobUrl);
-      }
-      return new Worker(options.workerUrl || 'worker.js');
-    }
-    function newChannel() {
-      if (options.wasmBytes) {
-        const copy = options.wasmBytes.slice(0);
-        return new Channel(factory, { type: 'init', wasm: copy }, [copy]);
-      }
-      return new Channel(factory, { type: 'init' });
-    }
-
-    // The helper answers check_spec and log_density_grid. If it is stuck on an old request when
-    // a new one arrives, it is replaced (a new worker starts in milliseconds).
-    let helper = null;
-    let helperBusy = 0;
-    let helperBusySince = 0;
-    function helperCall(msg, preempt) {
-      const now = performance.now();
-      if (helper && preempt && helperBusy > 0 && now - helperBusySince > 1500) {
-        helper.terminate();
-        helper = null;
-      }
-      if (!helper) { helper = newChannel(); helperBusy = 0; }
-      const ch = helper;
-      if (helperBusy === 0) helperBusySince = now;
-      helperBusy++;
-      return ch.call(msg).finally(function () {
-        if (ch === helper) { helperBusy--; }
-      });
-    }
-
-    function check(specJson) {
-      return helperCall({ type: 'check', spec: specJson }, true).then(function (r) { return r.result; });
-    }
-
-    function grid(specJson, g) {
-      return helperCall(Object.assign({ type: 'grid', spec: specJson }, g), false)
-        .then(function (r) { return r.values; });
-    }
-
-    function run(specJson, overrides, on) {
-      on = on || {};
-      let chains = overrides && overrides.chains;
-      if (!(chains >= 1)) {
-        try { chains = JSON.parse(specJson).settings.chains; } catch (e) { chains = undefined; }
-      }
-      if (!(chains >= 1)) chains = 4;
-      chains = Math.floor(chains);
-      const cores = Math.max(1, navigator.hardwareConcurrency || 1);
-      const W = Math.max(1, Math.min(cores, chains));
-      const channels = [];
-      let cancelled = false;
-
-      function stopAll() {
-        for (const ch of channels) ch.terminate();
-      }
-
-      async function drive() {
-        const t0 = performance.now();
-        if (on.onPhase) on.onPhase('Starting ' + W + (W === 1 ? ' worker' : ' workers') + '…');
-        for (let w = 0; w < W; w++) channels.push(newChannel());
-        await Promise.all(channels.map(function (ch) { return ch.ready; }));
-        if (on.onPhase) on.onPhase('Searching for modes…');
-        const overridesJson = JSON.stringify(overrides || {});
-        const readies = await Promise.all(channels.map(function (ch, w) {
-          const owned = [];
-          for (let c = w; c < chains; c += W) owned.push(c);
-          return ch.call({ type: 'session', spec: specJson, overrides: overridesJson, owned: owned });
-        }));
-        let state = readies[0];
-        if (state.chains !== chains) {
-          throw internalError('the engine resolved ' + state.chains + ' chains, the page expected ' +
-            chains + '; set the number of chains explicitly');
-        }
-        const settings = state.settings || {};
-        const warmupTotal = Number(settings.warmup) || 0;
-        const drawsPerChain = Number(settings.draws) || 0;
-        const units = Math.max(1, warmupTotal + drawsPerChain);
-        let warmDone = 0;
-        const tLoop = performance.now();
-        let lastProgress = null;
-        while (state.stepKind !== 'done') {
-          const recs = await Promise.all(channels.map(function (ch) { return ch.call({ type: 'step' }); }));
-          const all = JSON.stringify(recs.map(function (r) { return r.records; }));
-          const absorbed = await Promise.all(channels.map(function (ch) {
-            return ch.call({ type: 'absorb', all: all });
-          }));
-          if (state.stepKind === 'warmup') warmDone += Number(state.stepIterations) || 0;
-          state = absorbed[0];
-          const p = state.progress || {};
-          lastProgress = p;
-          const drawsTotal = Number(p.draws_total) || 0;
-          const drawsDone = Number(p.draws_done) || 0;
-          let done = Math.min(warmDone, warmupTotal) +
-            (drawsTotal > 0 ? drawsDone / drawsTotal * drawsPerChain : 0);
-          if (state.stepKind === 'done') done = units;
-          const fraction = Math.min(1, done / units);
-          const now = performance.now();
-          const loopTime = now - tLoop;
-          const remaining = fraction > 0 ? loopTime * (1 - fraction) / fraction : null;
-          if (on.onProgress) {
-            on.onProgress({
-              fraction: fraction, drawsDone: drawsDone, drawsTotal: drawsTotal,
-              elapsed: now - t0, remaining: remaining, stepKind: state.stepKind,
-              stepIndex: state.stepIndex, stepCount: state.stepCount,
-              progress: p, settings: settings,
-            });
-          }
-        }
-        if (on.onPhase) on.onPhase('Summarising…');
-        const fin = await channels[0].call({ type: 'finish', maxPoints: 4000 });
-        stopAll();
-        return { result: fin.result, draws: fin.draws, csv: fin.csv, progress: lastProgress,
-          elapsed: performance.now() - t0, workers: W };
-      }
-
-      const done = drive().catch(function (e) {
-        stopAll();
-        if (cancelled) throw { kind: 'cancelled', message: 'cancelled', rendered: '' };
-        throw e;
-      });
-      return {
-        workers: W,
-        done: done,
-        cancel: function () { cancelled = true; stopAll(); },
-      };
-    }
-
-    return { check: check, grid: grid, run: run };
   }
 
-  global.KilnEngine = { create: create };
-})(typeof self !== 'undefined' ? self : this);
+  function check(specJson) {
+    return helperCall({ type: 'check', spec: specJson }, true).then(function (r) { return r.result; });
+  }
+
+  function grid(specJson, g) {
+    return helperCall(Object.assign({ type: 'grid', spec: specJson }, g), false)
+      .then(function (r) { return r.values; });
+  }
+
+  function run(specJson, overrides, on) {
+    on = on || {};
+    let chains = overrides && overrides.chains;
+    if (!(chains >= 1)) {
+      try { chains = JSON.parse(specJson).settings.chains; } catch (e) { chains = undefined; }
+    }
+    if (!(chains >= 1)) chains = 4;
+    chains = Math.floor(chains);
+    const cores = Math.max(1, navigator.hardwareConcurrency || 1);
+    const W = Math.max(1, Math.min(cores, chains));
+    const channels = [];
+    let cancelled = false;
+
+    function stopAll() {
+      for (const ch of channels) ch.terminate();
+    }
+
+    async function drive() {
+      const t0 = performance.now();
+      if (on.onPhase) on.onPhase('Starting ' + W + (W === 1 ? ' worker' : ' workers') + '…');
+      for (let w = 0; w < W; w++) channels.push(newChannel());
+      await Promise.all(channels.map(function (ch) { return ch.ready; }));
+      if (on.onPhase) on.onPhase('Searching for modes…');
+      const overridesJson = JSON.stringify(overrides || {});
+      const readies = await Promise.all(channels.map(function (ch, w) {
+        const owned = [];
+        for (let c = w; c < chains; c += W) owned.push(c);
+        return ch.call({ type: 'session', spec: specJson, overrides: overridesJson, owned: owned });
+      }));
+      let state = readies[0];
+      if (state.chains !== chains) {
+        throw internalError('the engine resolved ' + state.chains + ' chains, the page expected ' +
+          chains + '; set the number of chains explicitly');
+      }
+      const settings = state.settings || {};
+      const warmupTotal = Number(settings.warmup) || 0;
+      const drawsPerChain = Number(settings.draws) || 0;
+      const units = Math.max(1, warmupTotal + drawsPerChain);
+      let warmDone = 0;
+      const tLoop = performance.now();
+      let lastProgress = null;
+      while (state.stepKind !== 'done') {
+        const recs = await Promise.all(channels.map(function (ch) { return ch.call({ type: 'step' }); }));
+        const all = JSON.stringify(recs.map(function (r) { return r.records; }));
+        const absorbed = await Promise.all(channels.map(function (ch) {
+          return ch.call({ type: 'absorb', all: all });
+        }));
+        if (state.stepKind === 'warmup') warmDone += Number(state.stepIterations) || 0;
+        state = absorbed[0];
+        const p = state.progress || {};
+        lastProgress = p;
+        const drawsTotal = Number(p.draws_total) || 0;
+        const drawsDone = Number(p.draws_done) || 0;
+        let done = Math.min(warmDone, warmupTotal) +
+          (drawsTotal > 0 ? drawsDone / drawsTotal * drawsPerChain : 0);
+        if (state.stepKind === 'done') done = units;
+        const fraction = Math.min(1, done / units);
+        const now = performance.now();
+        const loopTime = now - tLoop;
+        const remaining = fraction > 0 ? loopTime * (1 - fraction) / fraction : null;
+        if (on.onProgress) {
+          on.onProgress({
+            fraction: fraction, drawsDone: drawsDone, drawsTotal: drawsTotal,
+            elapsed: now - t0, remaining: remaining, stepKind: state.stepKind,
+            stepIndex: state.stepIndex, stepCount: state.stepCount,
+            progress: p, settings: settings,
+          });
+        }
+      }
+      if (on.onPhase) on.onPhase('Summarising…');
+      const fin = await channels[0].call({ type: 'finish', maxPoints: 4000 });
+      stopAll();
+      return { result: fin.result, draws: fin.draws, csv: fin.csv, progress: lastProgress,
+        elapsed: performance.now() - t0, workers: W };
+    }
+
+    const done = drive().catch(function (e) {
+      stopAll();
+      if (cancelled) throw { kind: 'cancelled', message: 'cancelled', rendered: '' };
+      throw e;
+    });
+    return {
+      workers: W,
+      done: done,
+      cancel: function () { cancelled = true; stopAll(); },
+    };
+  }
+
+  return { check: check, grid: grid, run: run };
+}

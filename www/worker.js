@@ -1,5 +1,9 @@
 // Kiln engine worker (classic worker). Loads the WebAssembly engine and answers messages
-// from engine.js. It never touches the page; everything it sends back is plain data.
+// from engine.js. It stays a classic script because it loads wasm-bindgen's no-modules glue
+// (pkg/kiln.js) with importScripts, or gets it prepended in a Blob worker.
+//
+// Owns: the engine instance and the run session inside one worker.
+// Must not touch: the page (it cannot); everything it sends back is plain data.
 //
 // Messages in (each may carry an `id` that is echoed back):
 //   {type: 'init', wasm?: ArrayBuffer}          load the engine (from bytes, or pkg/kiln_bg.wasm)

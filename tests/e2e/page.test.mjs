@@ -264,3 +264,30 @@ test('Cancel stops a run within 100 ms and the page stays usable', async () => {
   await runAndWait(page);
   await context.close();
 });
+
+test('a single-file page saves itself again as a single page that still works', async () => {
+  const { page, context } = await openPage(browser);
+  await page.goto(server.origin + '/#demo=default-two-modes.json');
+  await ready(page);
+  await page.fill(id('draws-input'), '300');
+  const first = await download(page, 'save-single');
+  await context.close();
+  const single = await openPage(browser);
+  await single.page.goto('file://' + first);
+  await ready(single.page);
+  await single.page.fill(id('title-input'), 'Saved twice');
+  // The second save bundles the page's modules from the copies embedded in the first.
+  const [dl] = await Promise.all([single.page.waitForEvent('download'), single.page.click(id('save-single'))]);
+  const second = path.join(ARTIFACTS, 'saved-twice.html');
+  await dl.saveAs(second);
+  await single.context.close();
+  const again = await openPage(browser);
+  await again.page.goto('file://' + second);
+  await ready(again.page);
+  assert.equal(await again.page.inputValue(id('title-input')), 'Saved twice');
+  assert.equal(await again.page.inputValue(id('draws-input')), '300');
+  await runAndWait(again.page);
+  for (const r of again.requests) assert.ok(/^(file|blob|data):/.test(r.url), 'the page saved twice fetched ' + r.url);
+  assert.deepEqual(again.errors, []);
+  await again.context.close();
+});

@@ -1,0 +1,183 @@
+// The model editor (left pane): the active slot's form shown in the page and every edit
+// written back into it, as typed.
+//
+// Owns: writeFormToDom, wireForm, the unknowns and mixture rows, the data summary, and
+// `changed` (after an edit: save, check, redraw). User text goes into inputs' values and text
+// nodes only.
+// Must not touch: the results pane, the engine (checking.js asks it), runs.
+import { state, activeSlot } from './state.js';
+import { SETTING_KEYS, newComponent } from './spec-form.js';
+import { parseCsv } from './csv.js';
+import { fmtInt } from './format.js';
+import { $, el, clear } from './dom.js';
+import { notice } from './notice.js';
+import { readFileText } from './files.js';
+import { saveSoon } from './storage.js';
+import { scheduleCheck } from './checking.js';
+import { scheduleRender } from './render-loop.js';
+
+// The input or select that holds a run setting.
+function settingInputId(k) {
+  return k === 'method' ? 'method-select' : k === 'integrator' ? 'integrator-select' : k + '-input';
+}
+
+/** Shows the active slot (or the empty-B panel) in the editor. */
+export function writeFormToDom() {
+  const slot = activeSlot();
+  const isEmptyB = state.active === 'B' && !slot;
+  $('slot-b-empty').hidden = !isEmptyB;
+  $('model-form').hidden = isEmptyB;
+  $('tab-a').setAttribute('aria-selected', String(state.active === 'A'));
+  $('tab-b').setAttribute('aria-selected', String(state.active === 'B'));
+  if (isEmptyB) return;
+  const f = slot.form;
+  $('title-input').value = f.title;
+  $('notes-input').value = f.notes;
+  for (const r of document.querySelectorAll('input[name=kind]')) r.checked = r.value === f.kind;
+  $('formula-input').value = f.formula;
+  $('data-input').value = f.dataCsv;
+  for (const k of SETTING_KEYS) $(settingInputId(k)).value = slot.settings[k];
+  renderKind();
+  renderUnknownRows();
+  renderMixtureRows();
+  renderDataSummary();
+}
+
+function renderKind() {
+  const f = activeSlot().form;
+  $('formula-block').hidden = f.kind === 'mixture';
+  $('data-block').hidden = f.kind === 'mixture';
+  $('mixture-block').hidden = f.kind !== 'mixture';
+  $('formula-label').textContent = f.kind === 'log_density' ? 'Log density' : 'Energy (density ∝ exp(−energy))';
+}
+
+function renderUnknownRows() {
+  const f = activeSlot().form;
+  const tb = $('unknowns-table').tBodies[0];
+  clear(tb);
+  f.variables.forEach(function (v, i) {
+    const label = v.name ? '`' + v.name + '`' : 'row ' + (i + 1);
+    function input(key, testid, aria, placeholder) {
+      return el('input', {
+        type: 'text', value: v[key], 'data-testid': testid, 'aria-label': aria, placeholder: placeholder,
+        spellcheck: 'false', autocapitalize: 'off', inputmode: key === 'name' ? null : 'decimal',
+        oninput: function (ev) { v[key] = ev.target.value; changed(); },
+      });
+    }
+    tb.appendChild(el('tr', null,
+      el('td', null, input('name', 'unknown-name', 'Name of unknown ' + (i + 1), 'name')),
+      el('td', null, input('lower', 'unknown-lower', 'Lower bound of unknown ' + (i + 1), 'none')),
+      el('td', null, input('upper', 'unknown-upper', 'Upper bound of unknown ' + (i + 1), 'none')),
+      el('td', null, el('button', {
+        type: 'button', class: 'icon', 'data-testid': 'unknown-remove', 'aria-label': 'Remove unknown ' + label, title: 'Remove',
+        onclick: function () { f.variables.splice(i, 1); renderUnknownRows(); changed(); focusIn('unknowns-table', Math.min(i, f.variables.length - 1)); },
+      }, '×'))));
+  });
+}
+
+function focusIn(tableId, row) {
+  const rows = $(tableId).tBodies[0].rows;
+  if (row >= 0 && rows[row]) { const i = rows[row].querySelector('input'); if (i) i.focus(); } else $(tableId === 'unknowns-table' ? 'add-unknown' : 'add-component').focus();
+}
+
+function renderMixtureRows() {
+  const f = activeSlot().form;
+  const tb = $('mixture-table').tBodies[0];
+  clear(tb);
+  f.mixture.forEach(function (c, i) {
+    const n = i + 1;
+    const spread = el('textarea', {
+      rows: 1, value: c.spread, spellcheck: 'false', 'data-testid': 'component-spread',
+      'aria-label': (c.shape === 'sd' ? 'Standard deviations' : 'Covariance') + ' of component ' + n,
+      placeholder: c.shape === 'sd' ? '1, 1' : '1, 0; 0, 1',
+      oninput: function (ev) { c.spread = ev.target.value; changed(); },
+    });
+    tb.appendChild(el('tr', null,
+      el('td', null, el('input', { type: 'text', value: c.weight, inputmode: 'decimal', 'data-testid': 'component-weight', 'aria-label': 'Weight of component ' + n, oninput: function (ev) { c.weight = ev.target.value; changed(); } })),
+      el('td', null, el('input', { type: 'text', value: c.mean, 'data-testid': 'component-mean', 'aria-label': 'Mean of component ' + n, placeholder: '0, 0', oninput: function (ev) { c.mean = ev.target.value; changed(); } })),
+      el('td', { class: 'spread-cell' }, el('select', {
+        'aria-label': 'Spread of component ' + n + ' given as', 'data-testid': 'component-shape',
+        onchange: function (ev) { c.shape = ev.target.value; renderMixtureRows(); changed(); },
+      }, el('option', { value: 'cov', selected: c.shape !== 'sd' }, 'covariance (rows split by ;)'), el('option', { value: 'sd', selected: c.shape === 'sd' }, 'standard deviations')), spread),
+      el('td', null, el('button', {
+        type: 'button', class: 'icon', 'aria-label': 'Remove component ' + n, title: 'Remove', 'data-testid': 'component-remove',
+        onclick: function () { f.mixture.splice(i, 1); renderMixtureRows(); changed(); focusIn('mixture-table', Math.min(i, f.mixture.length - 1)); },
+      }, '×'))));
+  });
+}
+
+function renderDataSummary() {
+  const f = activeSlot().form;
+  const node = $('data-summary');
+  if (!f.dataCsv.trim()) { node.textContent = 'No data. Paste CSV with a header row, or load a file; files are read in this browser and never uploaded.'; return; }
+  const d = parseCsv(f.dataCsv);
+  if (d.errors.length) { node.textContent = 'The data cannot be read yet: see the message above the unknowns.'; return; }
+  node.textContent = fmtInt(d.rows) + (d.rows === 1 ? ' row' : ' rows') + ' × ' + d.names.length + (d.names.length === 1 ? ' column: ' : ' columns: ') + d.names.join(', ') + '. Read in this browser; nothing is uploaded.';
+}
+
+// After every edit of the active slot: keep it, check it, redraw.
+function changed() {
+  saveSoon();
+  scheduleCheck(state.active);
+  renderDataSummary();
+  scheduleRender();
+}
+
+// A name for a new unknown that is not taken yet.
+function nextName(vars) {
+  const used = new Set(vars.map(function (v) { return v.name; }));
+  for (const c of ['x', 'y', 'z', 'u', 'v', 'w']) if (!used.has(c)) return c;
+  for (let i = 1; ; i++) if (!used.has('x' + i)) return 'x' + i;
+}
+
+/** Connects the editor's fields to the active slot. */
+export function wireForm() {
+  $('title-input').addEventListener('input', function (ev) { activeSlot().form.title = ev.target.value; changed(); });
+  $('notes-input').addEventListener('input', function (ev) { activeSlot().form.notes = ev.target.value; changed(); });
+  $('formula-input').addEventListener('input', function (ev) { activeSlot().form.formula = ev.target.value; changed(); });
+  $('data-input').addEventListener('input', function (ev) { activeSlot().form.dataCsv = ev.target.value; changed(); });
+  for (const r of document.querySelectorAll('input[name=kind]')) {
+    r.addEventListener('change', function (ev) {
+      const f = activeSlot().form;
+      f.kind = ev.target.value;
+      if (f.kind === 'mixture' && !f.mixture.length) {
+        f.mixture.push(newComponent(f));
+        renderMixtureRows();
+      }
+      renderKind();
+      changed();
+    });
+  }
+  $('add-unknown').addEventListener('click', function () {
+    const f = activeSlot().form;
+    f.variables.push({ name: nextName(f.variables), lower: '', upper: '' });
+    renderUnknownRows();
+    changed();
+    focusIn('unknowns-table', f.variables.length - 1);
+  });
+  $('add-component').addEventListener('click', function () {
+    const f = activeSlot().form;
+    f.mixture.push(newComponent(f));
+    renderMixtureRows();
+    changed();
+    focusIn('mixture-table', f.mixture.length - 1);
+  });
+  for (const k of SETTING_KEYS) {
+    const id = settingInputId(k);
+    $(id).addEventListener(id.indexOf('select') > 0 ? 'change' : 'input', function (ev) { activeSlot().settings[k] = ev.target.value; changed(); });
+  }
+  $('load-csv').addEventListener('click', function () { $('load-csv-file').value = ''; $('load-csv-file').click(); });
+  $('load-csv-file').addEventListener('change', function (ev) {
+    const file = ev.target.files && ev.target.files[0];
+    ev.target.value = '';
+    if (!file) return;
+    readFileText(file, function (text) {
+      const slot = activeSlot();
+      slot.form.dataCsv = text;
+      $('data-input').value = text;
+      changed();
+      notice(['Read ' + file.name + ' (' + fmtInt(file.size) + ' bytes) in this browser.']);
+    });
+  });
+  $('model-form').addEventListener('submit', function (ev) { ev.preventDefault(); });
+}

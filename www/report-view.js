@@ -1,0 +1,289 @@
+// The results pane for the active slot: title and meta line, stale note, run error, verdict,
+// log Z and the cross-checks, warnings, modes, unknowns, diagnostics and the printed model.
+//
+// Owns: renderReport, readVerdict / isDisagreement. Engine text is shown as text only.
+// Must not touch: the state (it only reads it), the editor, the plots (plots-view.js).
+import { state, activeSlot, unknownNames } from './state.js';
+import { runIsStale } from './runs.js';
+import { parseCsv } from './csv.js';
+import { isNum } from './numbers.js';
+import { str, sentence, fmtSig, fmtFixed, fmtPM, fmtInt, fmtPct, fmtDuration } from './format.js';
+import { $, el, append, clear, setChildren } from './dom.js';
+import { warnList, colourSwatches } from './widgets.js';
+
+// Replaced by the engine's typed value (issue 12/13)
+/**
+ * Whether a run's cross-checks disagree, read from its verdict text (or from a cross-check
+ * that does not agree), and the verdict's sentence without its "DISAGREEMENT:" tag.
+ */
+export function readVerdict(r) {
+  const disagreement = !!r && ((typeof r.verdict === 'string' && /disagree/i.test(r.verdict)) ||
+    (Array.isArray(r.cross_checks) && r.cross_checks.some(function (c) { return c && c.agrees === false; })));
+  const text = str((r && r.verdict) || (disagreement ? 'the cross-checks disagree' : '')).replace(/^\s*DISAGREEMENT\s*:\s*/, '');
+  return { disagreement: disagreement, text: text };
+}
+
+export function isDisagreement(r) {
+  return readVerdict(r).disagreement;
+}
+
+const CHECK_NAMES = {
+  grid: 'Grid quadrature', importance: 'Importance sampling', laplace: 'Laplace approximation', exact: 'Exact (mixture)',
+};
+
+export function renderReport() {
+  const slot = activeSlot();
+  $('report-kicker').textContent = 'Model ' + state.active;
+  if (!slot) {
+    $('results-heading').textContent = 'Model B is empty';
+    setChildren($('report-meta'), 'Start model B from the left to compare two models.');
+    for (const id of ['stale-note', 'run-error', 'verdict']) $(id).hidden = true;
+    emptyResults('—');
+    return;
+  }
+  const title = slot.form.title.trim() || 'Untitled model';
+  $('results-heading').textContent = title;
+  document.title = 'Kiln — ' + title;
+  const run = slot.run;
+  const r = run && run.status === 'done' ? run.result : null;
+  const check = slot.check && slot.check.result;
+  // Meta line.
+  let meta;
+  if (r) {
+    const s = r.settings || {};
+    meta = 'Seed ' + str(r.seed != null ? r.seed : s.seed) + ' · ' + s.chains + ' chains × ' + fmtInt(s.draws) + ' kept draws after ' + fmtInt(s.warmup) + ' warm-up · ' + s.method + ' method, ' + (s.integrator === 'hmc' ? 'static HMC' : 'NUTS') +
+      (isNum(r.gradient_evaluations) ? ' · ' + fmtInt(r.gradient_evaluations) + ' energy evaluations' : '') + ' · ' + fmtDuration(run.elapsed);
+  } else if (run && run.status === 'running') meta = 'Running… numbers below update as draws arrive.';
+  else if (run && run.status === 'cancelled') meta = 'The last run was cancelled.';
+  else if (slot.check && slot.check.error) meta = 'Not run yet: the model has a problem, shown under the editor.';
+  else meta = check ? 'Not run yet. The modes and values below come from the check; press Run to sample.' : 'Not run yet.';
+  setChildren($('report-meta'), meta);
+  $('stale-note').hidden = !(run && run.status === 'done' && runIsStale(slot));
+  // Error.
+  $('run-error').hidden = !(run && run.status === 'error');
+  if (run && run.status === 'error') $('run-error-text').textContent = (run.error && (run.error.rendered || run.error.message)) || String(run.error);
+  // Verdict.
+  const v = $('verdict');
+  v.className = 'verdict';
+  if (r) {
+    const verdict = readVerdict(r);
+    const bad = verdict.disagreement;
+    if (bad) v.classList.add('bad');
+    setChildren(v, el('span', { class: 'verdict-tag' }, bad ? 'DISAGREEMENT' : 'CHECKS AGREE'), sentence(verdict.text));
+    const nw = Array.isArray(r.warnings) ? r.warnings.length : 0;
+    if (nw && !bad) append(v, el('span', { class: 'verdict-more' }, ' — but read the ' + (nw === 1 ? 'warning' : nw + ' warnings') + ' below.'));
+    v.hidden = false;
+  } else if (run && (run.status === 'running' || run.status === 'cancelled')) {
+    v.classList.add('partial');
+    setChildren(v, el('span', { class: 'verdict-tag' }, run.status === 'running' ? 'RUNNING' : 'CANCELLED'),
+      run.status === 'running' ? 'The verdict comes when the run finishes; the running values below are provisional.' : 'The run was stopped before the end: the partial numbers below are not a result and should not be used.');
+    v.hidden = false;
+  } else v.hidden = true;
+  renderLogZ(slot, r, check);
+  renderWarnings(slot, r, check);
+  renderModes(slot, r, check);
+  renderUnknowns(slot, r);
+  renderDiagnostics(r);
+  $('dl-csv').disabled = !(r && run.csv);
+  $('dl-json').disabled = !r;
+  renderPrintModel(slot);
+}
+
+function emptyResults(msg) {
+  $('logz-value').textContent = msg; $('logz-sub').textContent = '';
+  clear($('cross-checks').tBodies[0]); clear($('warnings')); clear($('mode-table').tHead); clear($('mode-table').tBodies[0]);
+  clear($('unknowns-summary').tBodies[0]); clear($('diagnostics')); $('modes-foot').textContent = '';
+  $('dl-csv').disabled = true; $('dl-json').disabled = true;
+}
+
+function renderLogZ(slot, r, check) {
+  const val = $('logz-value');
+  const sub = $('logz-sub');
+  val.className = 'logz-value';
+  const run = slot.run;
+  const running = run && (run.status === 'running' || run.status === 'cancelled') && run.progress && Array.isArray(run.progress.running) && run.progress.running.length ? run.progress.running[run.progress.running.length - 1] : null;
+  if (r) {
+    val.textContent = fmtPM(r.log_z, r.log_z_se);
+    const cv = r.control_variates;
+    const cvText = cv && cv.used
+      ? ' With control variates from the base: without them ' + fmtPM(r.log_z_plain, r.log_z_plain_se) + ' (' + str(cv.note) + ').'
+      : '';
+    sub.textContent = '± is one standard error of the sampling (it cannot account for modes never found).' + cvText;
+  } else if (running) {
+    val.classList.add('partial');
+    val.textContent = fmtPM(running.log_z, running.log_z_se);
+    sub.textContent = (run.status === 'running' ? 'So far, after ' : 'Stopped after ') + fmtInt(running.draws) + ' kept draws: provisional.';
+  } else {
+    val.textContent = '—';
+    sub.textContent = check ? 'Run the model for the sampled value; the check values are in the table.' : '';
+  }
+  const tb = $('cross-checks').tBodies[0];
+  clear(tb);
+  const rows = [];
+  if (r && Array.isArray(r.cross_checks)) {
+    for (const c of r.cross_checks) {
+      const agree = c.agrees === true ? el('span', { class: 'pill yes' }, 'agrees') : c.agrees === false ? el('span', { class: 'pill no' }, 'disagrees') : el('span', { class: 'pill neutral' }, 'not judged');
+      rows.push(el('tr', null,
+        el('th', { scope: 'row' }, CHECK_NAMES[c.name] || str(c.name), c.note ? el('span', { class: 'check-note' }, str(c.note)) : null,
+          c.agrees === true && isNum(c.z_score) && Math.abs(c.z_score) > 4 ? el('span', { class: 'check-note' }, 'many standard errors apart, but the gap is small enough in absolute terms to count as agreement') : null),
+        el('td', { class: 'num' }, isNum(c.error) && c.error > 0 ? fmtPM(c.log_z, c.error) : fmtSig(c.log_z, 6) + (isNum(c.error) ? '' : ' (no error bar)')),
+        el('td', { class: 'num' }, isNum(c.z_score) ? fmtFixed(c.z_score, 2) : '—'),
+        el('td', null, agree)));
+    }
+  } else if (check) {
+    const items = [['exact', check.exact_log_z, 'exact for a Gaussian mixture'], ['grid', check.grid_log_z, 'quadrature on a refined grid'], ['laplace', check.laplace_log_z, 'sum of Gaussian approximations at the modes']];
+    for (const it of items) {
+      if (!isNum(it[1])) continue;
+      rows.push(el('tr', null, el('th', { scope: 'row' }, CHECK_NAMES[it[0]], el('span', { class: 'check-note' }, it[2])), el('td', { class: 'num' }, fmtSig(it[1], 6)), el('td', { class: 'num' }, '—'),
+        el('td', null, el('span', { class: 'pill neutral' }, 'after a run'))));
+    }
+  }
+  if (!rows.length) rows.push(el('tr', null, el('td', { colspan: 4, class: 'empty' }, 'No cross-checks yet.')));
+  append(tb, rows);
+}
+
+function renderWarnings(slot, r, check) {
+  const node = $('warnings');
+  clear(node);
+  const items = [];
+  const run = slot.run;
+  if (run && run.status === 'cancelled') items.push({ kind: 'warning', text: 'The run was cancelled before it finished; nothing below is a final result.' });
+  if (r) {
+    for (const w of (Array.isArray(r.warnings) ? r.warnings : [])) items.push({ kind: 'warning', text: w });
+    for (const n of (Array.isArray(r.notes) ? r.notes : [])) items.push({ kind: 'note', text: n });
+  } else if (slot.check && slot.check.error) {
+    items.push({ kind: 'warning', text: 'The model cannot be used yet: ' + (slot.check.error.message || 'see the message under the editor') + '.', source: slot.check.local ? 'Form:' : 'Check:' });
+  } else if (check) {
+    for (const w of (Array.isArray(check.warnings) ? check.warnings : [])) items.push({ kind: 'warning', text: w, source: 'Check:' });
+    if (check.grid && Array.isArray(check.grid.warnings)) for (const w of check.grid.warnings) items.push({ kind: 'warning', text: w, source: 'Grid:' });
+  }
+  if (!items.length) append(node, el('p', { class: 'muted' }, r ? 'No warnings: nothing in the diagnostics suggests a problem.' : (run && run.status === 'running' ? 'Warnings appear when the run finishes.' : 'No warnings from the check. A run adds its own diagnostics.')));
+  else append(node, warnList(items));
+}
+
+function renderModes(slot, r, check) {
+  const table = $('mode-table');
+  const names = unknownNames(slot);
+  const D = names.length;
+  const wide = D > 5;
+  clear(table.tHead); clear(table.tBodies[0]);
+  const modes = r && Array.isArray(r.modes) ? r.modes : (check && Array.isArray(check.modes) ? check.modes : []);
+  const exact = r && Array.isArray(r.exact_masses) ? r.exact_masses : (check && check.exact && Array.isArray(check.exact.masses) && !r ? check.exact.masses : null);
+  const head = [el('th', { scope: 'col' }, 'Mode')];
+  if (wide) head.push(el('th', { scope: 'col' }, 'location'));
+  else for (const n of names) head.push(el('th', { scope: 'col', class: 'num' }, n));
+  if (r) head.push(el('th', { scope: 'col', class: 'num' }, 'mass ± SE'));
+  else head.push(el('th', { scope: 'col', class: 'num' }, 'energy'));
+  head.push(el('th', { scope: 'col', class: 'num' }, 'Laplace mass'));
+  if (exact) head.push(el('th', { scope: 'col', class: 'num' }, 'exact mass'));
+  if (r) { head.push(el('th', { scope: 'col' }, 'visited')); head.push(el('th', { scope: 'col' }, 'found by')); }
+  append(table.tHead, el('tr', null, head));
+  const body = modes.slice(0, 200).map(function (m, k) {
+    const loc = Array.isArray(m.location) ? m.location : [];
+    const cells = [el('th', { scope: 'row' }, el('span', { class: 'swatch', 'aria-hidden': 'true', dataset: { mode: String(k + 1) } }), String(k + 1),
+      m.found_by && m.found_by !== 'optimiser' ? el('span', { title: 'found by the chains, missed by the optimiser' }, ' +') : null,
+      m.non_quadratic ? el('span', { class: 'flag', title: 'measured to be far from Gaussian' }, ' *') : null)];
+    if (wide) cells.push(el('td', { class: 'note' }, loc.map(function (v, i) { return (names[i] || '?') + ' = ' + fmtSig(v); }).join(', ')));
+    else for (let i = 0; i < D; i++) cells.push(el('td', { class: 'num' }, fmtSig(loc[i])));
+    if (r) cells.push(el('td', { class: 'num' }, fmtPM(m.mass, m.mass_se)));
+    else cells.push(el('td', { class: 'num' }, fmtSig(m.energy, 5)));
+    cells.push(el('td', { class: 'num' }, fmtSig(m.laplace_mass, 3)));
+    if (exact) cells.push(el('td', { class: 'num' }, fmtSig(exact[k], 4)));
+    if (r) {
+      cells.push(el('td', null, m.visited ? el('span', { class: 'pill yes' }, 'yes') : el('span', { class: 'pill no' }, 'no')));
+      cells.push(el('td', null, m.found_by === 'optimiser' ? 'optimiser' : m.found_by ? str(m.found_by) + ' +' : '—'));
+    }
+    return el('tr', null, cells);
+  });
+  if (!body.length) body.push(el('tr', null, el('td', { colspan: head.length, class: 'empty' }, slot.check && slot.check.pending ? 'Checking…' : 'No modes yet: the model has not been checked successfully.')));
+  append(table.tBodies[0], body);
+  colourSwatches(table);
+  const foot = [];
+  if (modes.length > 200) foot.push('Showing the first 200 of ' + modes.length + ' modes; the JSON summary has them all.');
+  if (r) foot.push('Mass is the share of Z in each mode from the sampler; the Laplace mass comes from the Gaussian approximations alone. “+” marks a mode the chains found that the optimiser had missed; a mode not visited got no draws.');
+  else if (modes.length) foot.push('Modes from the optimiser. Energy is the value at the mode; run the model to weigh them by sampling.');
+  $('modes-foot').textContent = foot.join(' ');
+}
+
+function renderUnknowns(slot, r) {
+  const tb = $('unknowns-summary').tBodies[0];
+  clear(tb);
+  if (!r) { append(tb, el('tr', null, el('td', { colspan: 8, class: 'empty' }, 'Run the model to summarise the unknowns.'))); return; }
+  const names = unknownNames(slot);
+  names.forEach(function (n, i) {
+    const q = Array.isArray(r.quantiles) && Array.isArray(r.quantiles[i]) ? r.quantiles[i] : [];
+    const rh = r.rhat ? r.rhat[i] : null;
+    const ess = r.ess ? r.ess[i] : null;
+    const u = r.unknowns && r.unknowns[i];
+    const bounds = u && (isNum(u.lower) || isNum(u.upper)) ? ' (' + (isNum(u.lower) ? fmtSig(u.lower) : '−∞') + ' to ' + (isNum(u.upper) ? fmtSig(u.upper) : '∞') + ')' : '';
+    append(tb, el('tr', null,
+      el('th', { scope: 'row' }, n, bounds ? el('span', { class: 'muted' }, bounds) : null),
+      el('td', { class: 'num' }, fmtSig(r.mean && r.mean[i])),
+      el('td', { class: 'num' }, fmtSig(r.sd && r.sd[i])),
+      el('td', { class: 'num' }, fmtSig(q[0])), el('td', { class: 'num' }, fmtSig(q[1])), el('td', { class: 'num' }, fmtSig(q[2])),
+      el('td', { class: 'num' + (isNum(rh) && rh > 1.01 ? ' flag' : ''), title: isNum(rh) && rh > 1.01 ? 'above 1.01: the chains disagree' : null }, isNum(rh) ? rh.toFixed(3) : fmtSig(rh)),
+      el('td', { class: 'num' + (isNum(ess) && ess < 100 ? ' flag' : '') }, fmtInt(ess))));
+  });
+}
+
+// [key in result.diagnostics, label, value -> [text, explanation or null, flagged]].
+const DIAG = [
+  ['acceptance', 'Mean acceptance', function (v, r) { return [fmtFixed(v, 3), 'target ' + str((r.settings || {}).target_accept || 0.8)]; }],
+  ['divergences', 'Divergent transitions', function (v) { return [fmtInt(v), v > 0 ? 'the integrator broke down in places; results near those regions are suspect' : null, v > 0]; }],
+  ['max_depth_hits', 'Trajectories stopped at the tree-depth limit', function (v) { return [fmtInt(v), null, v > 0]; }],
+  ['independence_acceptance', 'Acceptance of independence moves from the base', function (v) { return [fmtPct(v)]; }],
+  ['hamiltonian_share', 'Share of iterations with a Hamiltonian move', function (v) { return [fmtPct(v), 'the others only drew from the base and redrew β']; }],
+  ['round_trips', 'Round trips between β = 0 and β = 1, per chain', function (v) { const a = Array.isArray(v) ? v : [v]; return [a.map(fmtInt).join(', '), a.some(function (x) { return x === 0; }) ? 'a chain never made a round trip' : null, a.some(function (x) { return x === 0; })]; }],
+  ['share_near_beta_one', 'Share of time near β = 1', function (v) { return [fmtPct(v)]; }],
+  ['mean_p1', 'Mean probability of β = 1 given the position', function (v) { return [fmtFixed(v, 3)]; }],
+  ['log_z_ess', 'Effective draws of the log Z series', function (v) { return [fmtInt(v), v < 100 ? 'few: the log Z error bar is itself uncertain' : null, v < 100]; }],
+  ['is_ess', 'Effective draws of the importance-sampling check', function (v) { return [fmtInt(v)]; }],
+  ['bias_span', 'Span of the learnt tempering bias', function (v) { return [fmtSig(v, 3) + ' nats']; }],
+  ['base_components', 'Components of the base mixture', function (v) { return [fmtInt(v)]; }],
+  ['base_refitted', 'Base refitted during warm-up', function (v) { return [v ? 'yes' : 'no']; }],
+  ['step_sizes', 'Step sizes, per chain', function (v) { return [(Array.isArray(v) ? v : [v]).map(function (x) { return fmtSig(x, 3); }).join(', ')]; }],
+  ['far_from_modes', 'Share of target weight far from every known mode', function (v) { return [fmtPct(v), v > 0.01 ? 'a mode may be missing' : null, v > 0.01]; }],
+];
+
+function renderDiagnostics(r) {
+  const dl = $('diagnostics');
+  clear(dl);
+  if (!r) { append(dl, el('dt', null, 'Diagnostics'), el('dd', { class: 'muted' }, 'after a run')); return; }
+  const d = r.diagnostics || {};
+  const seen = new Set();
+  function row(label, value, explain, flag) {
+    append(dl, el('dt', null, label), el('dd', flag ? { class: 'flag' } : null, value, explain ? el('span', { class: 'explain' }, explain) : null));
+  }
+  for (const spec of DIAG) {
+    if (!(spec[0] in d)) continue;
+    seen.add(spec[0]);
+    const out = spec[2](d[spec[0]], r);
+    row(spec[1], out[0], out[1], out[2]);
+  }
+  for (const k of Object.keys(d)) {
+    if (seen.has(k)) continue;
+    const v = d[k];
+    row(k.replace(/_/g, ' '), Array.isArray(v) ? v.map(function (x) { return fmtSig(x); }).join(', ') : (typeof v === 'object' && v !== null ? JSON.stringify(v) : fmtSig(v)));
+  }
+  if (isNum(r.gradient_evaluations)) row('Energy evaluations (with or without gradient)', fmtInt(r.gradient_evaluations));
+}
+
+// The model as text, for the printed report.
+function renderPrintModel(slot) {
+  const node = $('print-model');
+  clear(node);
+  const f = slot.form;
+  if (f.notes.trim()) append(node, el('p', null, f.notes));
+  append(node, el('p', null, el('strong', null, 'Unknowns: '), f.variables.map(function (v) {
+    const lo = str(v.lower).trim(), hi = str(v.upper).trim();
+    return v.name + (lo || hi ? ' in [' + (lo || '−∞') + ', ' + (hi || '∞') + ']' : '');
+  }).join('; ')));
+  if (f.kind === 'mixture') {
+    append(node, el('p', null, el('strong', null, 'Gaussian mixture: '), f.mixture.length + ' components'));
+    append(node, el('pre', null, f.mixture.map(function (c) { return 'weight ' + c.weight + ', mean [' + c.mean + '], ' + (c.shape === 'sd' ? 'sd [' : 'cov [') + c.spread + ']'; }).join('\n')));
+  } else {
+    append(node, el('p', null, el('strong', null, f.kind === 'log_density' ? 'Log density:' : 'Energy:')));
+    append(node, el('pre', null, f.formula));
+    if (f.dataCsv.trim()) { const d = parseCsv(f.dataCsv); append(node, el('p', null, el('strong', null, 'Data: '), d.rows + ' rows of ' + d.names.join(', '))); }
+  }
+}
