@@ -42,6 +42,7 @@ if [ ! -x /usr/bin/chromium ]; then
   (apt-get update -qq && apt-get install -y -qq chromium) || { echo "could not install Chromium"; exit 1; }
 fi
 npm ci --no-audit --no-fund
+npm test
 bash scripts/build-web.sh
 cargo build --bin kiln
 npm run e2e
