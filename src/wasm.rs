@@ -116,6 +116,20 @@ pub fn log_density_grid(
         .map_err(|e| to_js_error(&e))
 }
 
+/// The log Bayes factor of two finished runs, from each run's result (`log_z`, `log_z_se` and
+/// `verdict` are read; other fields are ignored): the one implementation of the comparison.
+#[wasm_bindgen]
+pub fn compare_runs(a_json: &str, b_json: &str) -> Result<JsValue, JsValue> {
+    let read = |json: &str, which: &str| -> Result<run::Evidence, JsValue> {
+        serde_json::from_str(json).map_err(|e| {
+            to_js_error(&KilnError::usage(format!(
+                "could not read run {which}'s result: {e}"
+            )))
+        })
+    };
+    to_js(&run::bayes_factor(&read(a_json, "A")?, &read(b_json, "B")?))
+}
+
 /// The library's version.
 #[wasm_bindgen]
 pub fn version() -> String {

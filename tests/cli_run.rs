@@ -118,8 +118,8 @@ fn compare_gives_the_log_bayes_factor() {
     let v: Value = serde_json::from_str(&out).unwrap();
     // Exact identity: log(Z_A / Z_B) = log(3 / 0.5).
     let (lbf, se) = (
-        v["log_bayes_factor"].as_f64().unwrap(),
-        v["log_bayes_factor_se"].as_f64().unwrap(),
+        v["bayes_factor"]["log_bayes_factor"].as_f64().unwrap(),
+        v["bayes_factor"]["log_bayes_factor_se"].as_f64().unwrap(),
     );
     assert!(
         (lbf - 6f64.ln()).abs() < 0.05_f64.max(4.0 * se),

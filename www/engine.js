@@ -114,6 +114,12 @@ export function createEngine(options) {
     return helperCall({ type: 'check', spec: specJson }, true).then(function (r) { return r.result; });
   }
 
+  /** The log Bayes factor of two finished runs (their results), as the engine computes it. */
+  function compare(resultA, resultB) {
+    return helperCall({ type: 'compare', a: JSON.stringify(resultA), b: JSON.stringify(resultB) }, false)
+      .then(function (r) { return r.result; });
+  }
+
   function grid(specJson, g) {
     return helperCall(Object.assign({ type: 'grid', spec: specJson }, g), false)
       .then(function (r) { return r.values; });
@@ -207,5 +213,5 @@ export function createEngine(options) {
     };
   }
 
-  return { check: check, grid: grid, run: run };
+  return { check: check, grid: grid, run: run, compare: compare };
 }

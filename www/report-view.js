@@ -1,7 +1,7 @@
 // The results pane for the active slot: title and meta line, stale note, run error, verdict,
 // log Z and the cross-checks, warnings, modes, unknowns, diagnostics and the printed model.
 //
-// Owns: renderReport, readVerdict / isDisagreement. Engine text is shown as text only.
+// Owns: renderReport, verdictOf (the engine's typed verdict). Engine text is shown as text only.
 // Must not touch: the state (it only reads it), the editor, the plots (plots-view.js).
 import { state, activeSlot, unknownNames } from './state.js';
 import { runIsStale } from './runs.js';
@@ -11,21 +11,19 @@ import { str, sentence, fmtSig, fmtFixed, fmtPM, fmtInt, fmtPct, fmtDuration } f
 import { $, el, append, clear, setChildren } from './dom.js';
 import { warnList, colourSwatches } from './widgets.js';
 
-// Replaced by the engine's typed value (issue 12/13)
 /**
- * Whether a run's cross-checks disagree, read from its verdict text (or from a cross-check
- * that does not agree), and the verdict's sentence without its "DISAGREEMENT:" tag.
+ * The engine's typed verdict of a run: {state: 'agree' | 'disagree' | 'not_enough_evidence',
+ * search_limited, headline, sentence, voted, abstained}. The page reads it and never matches
+ * text.
  */
-export function readVerdict(r) {
-  const disagreement = !!r && ((typeof r.verdict === 'string' && /disagree/i.test(r.verdict)) ||
-    (Array.isArray(r.cross_checks) && r.cross_checks.some(function (c) { return c && c.agrees === false; })));
-  const text = str((r && r.verdict) || (disagreement ? 'the cross-checks disagree' : '')).replace(/^\s*DISAGREEMENT\s*:\s*/, '');
-  return { disagreement: disagreement, text: text };
+export function verdictOf(r) {
+  const v = r && r.verdict && typeof r.verdict === 'object' ? r.verdict : null;
+  return v || { state: 'not_enough_evidence', search_limited: true, headline: 'No verdict', sentence: '', voted: [], abstained: [] };
 }
 
-export function isDisagreement(r) {
-  return readVerdict(r).disagreement;
-}
+const FOUND_BY = {
+  starts: 'scattered starts', barrier: 'across a barrier', lattice: 'from neighbouring modes', scan: 'the dense scan', chains: 'the chains +',
+};
 
 const CHECK_NAMES = {
   grid: 'Grid quadrature', importance: 'Importance sampling', laplace: 'Laplace approximation', exact: 'Exact (mixture)',
@@ -66,12 +64,15 @@ export function renderReport() {
   const v = $('verdict');
   v.className = 'verdict';
   if (r) {
-    const verdict = readVerdict(r);
-    const bad = verdict.disagreement;
-    if (bad) v.classList.add('bad');
-    setChildren(v, el('span', { class: 'verdict-tag' }, bad ? 'DISAGREEMENT' : 'CHECKS AGREE'), sentence(verdict.text));
+    const verdict = verdictOf(r);
+    v.dataset.state = verdict.state;
+    v.dataset.searchLimited = verdict.search_limited ? 'true' : 'false';
+    if (verdict.state === 'disagree') v.classList.add('bad');
+    else if (verdict.state !== 'agree' || verdict.search_limited) v.classList.add('caution');
+    setChildren(v, el('span', { class: 'verdict-tag', 'data-testid': 'verdict-headline' }, str(verdict.headline)),
+      el('span', { 'data-testid': 'verdict-sentence' }, ' ' + sentence(verdict.sentence)));
     const nw = Array.isArray(r.warnings) ? r.warnings.length : 0;
-    if (nw && !bad) append(v, el('span', { class: 'verdict-more' }, ' — but read the ' + (nw === 1 ? 'warning' : nw + ' warnings') + ' below.'));
+    if (nw && verdict.state === 'agree') append(v, el('span', { class: 'verdict-more' }, ' Read the ' + (nw === 1 ? 'warning' : nw + ' warnings') + ' below.'));
     v.hidden = false;
   } else if (run && (run.status === 'running' || run.status === 'cancelled')) {
     v.classList.add('partial');
@@ -122,10 +123,10 @@ function renderLogZ(slot, r, check) {
   const rows = [];
   if (r && Array.isArray(r.cross_checks)) {
     for (const c of r.cross_checks) {
-      const agree = c.agrees === true ? el('span', { class: 'pill yes' }, 'agrees') : c.agrees === false ? el('span', { class: 'pill no' }, 'disagrees') : el('span', { class: 'pill neutral' }, 'not judged');
+      const agree = c.agrees === true ? el('span', { class: 'pill yes' }, 'agrees') : c.agrees === false ? el('span', { class: 'pill no' }, 'disagrees') : el('span', { class: 'pill neutral' }, 'does not vote');
       rows.push(el('tr', null,
         el('th', { scope: 'row' }, CHECK_NAMES[c.name] || str(c.name), c.note ? el('span', { class: 'check-note' }, str(c.note)) : null,
-          c.agrees === true && isNum(c.z_score) && Math.abs(c.z_score) > 4 ? el('span', { class: 'check-note' }, 'many standard errors apart, but the gap is small enough in absolute terms to count as agreement') : null),
+          !c.votes && c.abstains_because ? el('span', { class: 'check-note' }, 'Does not vote: ' + str(c.abstains_because) + '.') : null),
         el('td', { class: 'num' }, isNum(c.error) && c.error > 0 ? fmtPM(c.log_z, c.error) : fmtSig(c.log_z, 6) + (isNum(c.error) ? '' : ' (no error bar)')),
         el('td', { class: 'num' }, isNum(c.z_score) ? fmtFixed(c.z_score, 2) : '—'),
         el('td', null, agree)));
@@ -181,17 +182,17 @@ function renderModes(slot, r, check) {
   const body = modes.slice(0, 200).map(function (m, k) {
     const loc = Array.isArray(m.location) ? m.location : [];
     const cells = [el('th', { scope: 'row' }, el('span', { class: 'swatch', 'aria-hidden': 'true', dataset: { mode: String(k + 1) } }), String(k + 1),
-      m.found_by && m.found_by !== 'optimiser' ? el('span', { title: 'found by the chains, missed by the optimiser' }, ' +') : null,
+      m.found_by === 'chains' ? el('span', { title: 'found by the chains, missed by the mode search' }, ' +') : null,
       m.non_quadratic ? el('span', { class: 'flag', title: 'measured to be far from Gaussian' }, ' *') : null)];
     if (wide) cells.push(el('td', { class: 'note' }, loc.map(function (v, i) { return (names[i] || '?') + ' = ' + fmtSig(v); }).join(', ')));
     else for (let i = 0; i < D; i++) cells.push(el('td', { class: 'num' }, fmtSig(loc[i])));
-    if (r) cells.push(el('td', { class: 'num' }, fmtPM(m.mass, m.mass_se)));
+    if (r) cells.push(el('td', { class: 'num' }, m.visited && isNum(m.mass_se) ? fmtPM(m.mass, m.mass_se) : 'not visited'));
     else cells.push(el('td', { class: 'num' }, fmtSig(m.energy, 5)));
     cells.push(el('td', { class: 'num' }, fmtSig(m.laplace_mass, 3)));
     if (exact) cells.push(el('td', { class: 'num' }, fmtSig(exact[k], 4)));
     if (r) {
       cells.push(el('td', null, m.visited ? el('span', { class: 'pill yes' }, 'yes') : el('span', { class: 'pill no' }, 'no')));
-      cells.push(el('td', null, m.found_by === 'optimiser' ? 'optimiser' : m.found_by ? str(m.found_by) + ' +' : '—'));
+      cells.push(el('td', null, FOUND_BY[m.found_by] || str(m.found_by || '—')));
     }
     return el('tr', null, cells);
   });
@@ -200,9 +201,20 @@ function renderModes(slot, r, check) {
   colourSwatches(table);
   const foot = [];
   if (modes.length > 200) foot.push('Showing the first 200 of ' + modes.length + ' modes; the JSON summary has them all.');
-  if (r) foot.push('Mass is the share of Z in each mode from the sampler; the Laplace mass comes from the Gaussian approximations alone. “+” marks a mode the chains found that the optimiser had missed; a mode not visited got no draws.');
+  if (r) foot.push('Mass is the share of Z in each mode from the sampler; the Laplace mass comes from the Gaussian approximations alone. “+” marks a mode the chains found that the mode search had missed; a mode not visited got no draws, so its mass is not estimated.');
+  const cov = (r && r.mode_coverage) || (check && check.mode_coverage);
+  if (cov) foot.push(coverageText(cov));
   else if (modes.length) foot.push('Modes from the optimiser. Energy is the value at the mode; run the model to weigh them by sampling.');
   $('modes-foot').textContent = foot.join(' ');
+}
+
+/** The mode search's evidence in one paragraph (the figures are in the JSON summary). */
+export function coverageText(c) {
+  const k = c.counts || {};
+  const parts = ['Mode search: ' + str(c.summary) + '.',
+    fmtInt(k.converged) + ' of ' + fmtInt(c.starts) + ' starts ended in ' + fmtInt(k.distinct) + ' distinct modes, ' + fmtInt(k.singletons) + ' reached by only one start; chance that one more start finds a new mode ' + fmtPct(c.new_mode_chance) + ' (Good–Turing); expected modes not yet seen ' + (isNum(c.expected_unseen) ? fmtFixed(c.expected_unseen, 2) : 'unknown') + ' (Boender & Rinnooy Kan).'];
+  for (const l of (c.limitations || [])) parts.push('Limitation: ' + sentence(l.sentence));
+  return parts.join(' ');
 }
 
 function renderUnknowns(slot, r) {

@@ -8,6 +8,7 @@
 // Messages in (each may carry an `id` that is echoed back):
 //   {type: 'init', wasm?: ArrayBuffer}          load the engine (from bytes, or pkg/kiln_bg.wasm)
 //   {type: 'check', spec}                        check_spec(spec) -> {type: 'checked', result}
+//   {type: 'compare', a, b}                      compare_runs(a, b) (run results as JSON) -> {type: 'compared', result}
 //   {type: 'grid', spec, ix, iy, xmin, xmax, ymin, ymax, nx, ny} -> {type: 'grid', values}
 //   {type: 'session', spec, overrides, owned}   new RunSession -> {type: 'ready', ...state}
 //   {type: 'step'}                               run_step() -> {type: 'records', records}
@@ -76,6 +77,10 @@ async function handle(msg) {
     case 'check': {
       await kilnReady;
       return { type: 'checked', result: wasm_bindgen.check_spec(msg.spec) };
+    }
+    case 'compare': {
+      await kilnReady;
+      return { type: 'compared', result: wasm_bindgen.compare_runs(msg.a, msg.b) };
     }
     case 'grid': {
       await kilnReady;

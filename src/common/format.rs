@@ -65,13 +65,34 @@ pub fn table(rows: &[Vec<String>]) -> String {
     out
 }
 
-/// `x ± e` with the error's precision.
+/// Standard errors below this are printed as "< 1e-10", never as zero.
+pub const SE_FLOOR: f64 = 1e-10;
+
+/// A standard error alone: never printed as zero.
+pub fn se_text(e: f64) -> String {
+    if !e.is_finite() {
+        num(e)
+    } else if e < SE_FLOOR {
+        "< 1e-10".into()
+    } else if e < 5e-5 {
+        format!("{e:.1e}")
+    } else {
+        let digits = (-libm::floor(libm::log10(e)) as i32 + 1).clamp(1, 8) as usize;
+        format!("{e:.digits$}")
+    }
+}
+
+/// `x ± e` with the error's precision; an error below [`SE_FLOOR`] (or zero) is written
+/// "± < 1e-10", never as zero.
 pub fn pm(v: f64, e: f64) -> String {
     if !v.is_finite() {
         return num(v);
     }
-    if !(e.is_finite() && e > 0.0) {
-        return format!("{v:.4}");
+    if !e.is_finite() {
+        return format!("{v:.4} ± {}", num(e));
+    }
+    if e < SE_FLOOR {
+        return format!("{v:.10} ± < 1e-10");
     }
     if e < 5e-5 {
         return format!("{v:.4} ± {e:.1e}");

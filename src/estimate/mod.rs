@@ -19,11 +19,12 @@ pub mod control;
 pub mod crosscheck;
 pub mod importance;
 pub mod log_z;
+pub mod psis;
 pub mod quadrature;
 pub mod summary;
 pub mod warnings;
 
-pub use crosscheck::{cross_checks, verdict, CrossCheck};
+pub use crosscheck::{cross_checks, verdict, Agreement, CrossCheck, Verdict};
 pub use log_z::{log_z_estimate, log_z_with_controls, ControlSummary, LogZ};
 pub use summary::{estimate, Diagnostics, Estimates, ModeEstimate, WeightedDraws};
 pub use warnings::warnings;

@@ -1,217 +1,377 @@
 //! Independent check: log Z by grid quadrature, for one or two unknowns.
 //!
-//! Owns: the grid over the user's coordinates (the box given by the bounds, or for unbounded
-//! directions the modes ± many standard deviations, widened while its edge still carries mass),
-//! the midpoint rule on that grid refined by doubling until two levels agree, and the warning
-//! when the grid's edge still holds noticeable mass or the work budget ran out first.
-//! Must not: use the sampler or the Laplace masses (only the modes' locations and widths, to
-//! place the grid), so that it stays an independent check.
+//! Owns: the grid check of the method note, whose domain does not come from the modes found:
+//! the searched region of `search::scan` (the bounds, or for unbounded directions the start
+//! design's region, widened only to hold modes found outside it), on axes that are linear in
+//! the unknown or, for an unknown with one bound, linear in the log of its distance from the
+//! bound; widened ×4 on open sides while their edge cells still carry mass. A base grid
+//! resolves any mode at least half a cell wide anywhere in the region; cells are then split
+//! where the density concentrates (where splitting changes their value, the midpoint rule's
+//! own error estimate) until the estimated error is below [`TOLERANCE`] nats or the work
+//! budget is spent, which the result says. Cells around the modes found that are wider than
+//! those modes are split too, so that a narrow mode the search did find is integrated
+//! accurately; that uses the modes for accuracy only, never for where to look. A mode the
+//! search missed, if at least half a base cell wide, is integrated all the same, and shows as
+//! a disagreement with the sampler.
+//!
+//! The error reported is the change of the whole estimate made by the last round of splitting:
+//! for a smooth density it is larger than the error of the value after it, so it errs on the
+//! side of caution.
+//! Must not: use the sampler or the Laplace masses.
 
-use crate::common::maths::{exp, ln, log_add_exp};
-use crate::model::target::{Target, Transform};
+use crate::common::maths::{exp, ln, log_sum_exp};
+use crate::model::target::Target;
+use crate::search::coverage::Range;
+use crate::search::scan::{mode_sd_z, search_axes, GridAxis, Spacing};
+use crate::search::Mode;
 use serde::Serialize;
 
 /// Result of the grid quadrature.
 #[derive(Clone, Debug, Serialize)]
 pub struct GridResult {
-    /// Best estimate of log Z (the finest level).
+    /// Best estimate of log Z (the finest cells).
     pub log_z: f64,
-    /// |difference| between the last two levels, in nats: the error estimate.
+    /// The error estimate, in nats.
     pub change: f64,
-    /// Grid points per axis at the finest level.
+    /// Cells per axis of the base grid.
     pub points_per_axis: Vec<usize>,
+    /// Whether the error estimate fell below the tolerance within the budget.
     pub converged: bool,
     /// Share of the mass in the outermost cells of unbounded directions.
     pub edge_mass: f64,
     /// Set when widening the grid along this axis kept adding mass at a rate that does not
     /// die out: the density looks not normalisable along it.
     pub growing_along: Option<usize>,
+    /// The region integrated, per unknown (user units).
+    pub region: Vec<Range>,
+    /// How each axis is spaced.
+    pub scale: Vec<Spacing>,
+    /// The narrowest mode the base grid resolves anywhere in the region, per unknown (half a
+    /// base cell: user units for a linear axis, log units for a log axis).
+    pub narrowest: Vec<f64>,
+    /// Energy evaluations spent.
+    pub evaluations: u64,
     pub warnings: Vec<String>,
 }
 
+/// Target error of the grid value, in nats.
+pub const TOLERANCE: f64 = 1e-4;
+/// Most times the grid is widened along open directions.
+const MAX_WIDENINGS: usize = 7;
+/// Cells of the base grid, by number of unknowns.
+const BASE_CELLS: [f64; 2] = [100_000.0, 1_000_000.0];
+/// Most levels of splitting below the base grid.
+const MAX_LEVELS: u32 = 60;
+/// Cells whose value and neighbours' values are all below this share of the largest cell are
+/// not split (their total is below 1e-14 × cells of the whole).
+const NEGLIGIBLE: f64 = 1e-14;
+
+/// A cell: its lower corner and level (its width is the base width / 2^level per axis), with
+/// the log of its midpoint estimate.
 #[derive(Clone, Copy, Debug)]
-struct Segment {
-    a: f64,
-    b: f64,
-    /// Points at the coarsest level.
-    n: usize,
+struct Cell {
+    lo: [f64; 2],
+    level: u32,
+    log_m: f64,
 }
 
-#[derive(Clone, Debug)]
-struct Axis {
-    segments: Vec<Segment>,
-    open_low: bool,
-    open_high: bool,
+struct Grid {
+    axes: Vec<GridAxis>,
+    base: Vec<f64>,
+    d: usize,
+    evaluations: u64,
+    x: Vec<f64>,
+    ev: crate::model::target::TargetEval,
 }
 
-impl Axis {
-    fn points(&self, level: u32) -> Vec<(f64, f64)> {
-        let mut out = Vec::new();
-        for s in &self.segments {
-            let n = s.n << level;
-            let h = (s.b - s.a) / n as f64;
-            for j in 0..n {
-                out.push((s.a + (j as f64 + 0.5) * h, h));
+impl Grid {
+    fn width(&self, j: usize, level: u32) -> f64 {
+        self.base[j] / (1u64 << level.min(62)) as f64
+    }
+
+    /// log of the midpoint estimate of a cell: log f(mid) + log |dx/du| + log volume.
+    fn log_m(&mut self, lo: [f64; 2], level: u32) -> f64 {
+        let mut log_vol = 0.0;
+        let mut log_jac = 0.0;
+        for j in 0..self.d {
+            let w = self.width(j, level);
+            let u = lo[j] + 0.5 * w;
+            self.x[j] = self.axes[j].x_of(u);
+            log_jac += self.axes[j].log_jacobian(u);
+            log_vol += ln(w);
+        }
+        self.evaluations += 1;
+        let e = self.ev.user_energy(&self.x);
+        if e.is_finite() {
+            log_jac + log_vol - e
+        } else {
+            f64::NEG_INFINITY
+        }
+    }
+
+    /// The 2^d children of a cell.
+    fn children(&mut self, c: &Cell) -> Vec<Cell> {
+        let level = c.level + 1;
+        let mut out = Vec::with_capacity(1 << self.d);
+        for k in 0..(1usize << self.d) {
+            let mut lo = c.lo;
+            for j in 0..self.d {
+                if k >> j & 1 == 1 {
+                    lo[j] += self.width(j, level);
+                }
             }
+            let log_m = self.log_m(lo, level);
+            out.push(Cell { lo, level, log_m });
         }
         out
     }
-    fn count(&self, level: u32) -> usize {
-        self.segments.iter().map(|s| s.n << level).sum()
+
+    /// Whether a cell is wider than a known mode it is near (within 6 of the mode's standard
+    /// deviations), along some axis. (With cells at most one standard deviation wide, the
+    /// midpoint rule on a Gaussian bump is exact to about e^(−2π²) ≈ 3e−9 of its mass.)
+    fn near_narrow_mode(&self, c: &Cell, modes: &[(Vec<f64>, Vec<f64>)]) -> bool {
+        modes.iter().any(|(u, s)| {
+            (0..self.d).all(|j| {
+                let w = self.width(j, c.level);
+                u[j] + 6.0 * s[j] >= c.lo[j] && u[j] - 6.0 * s[j] <= c.lo[j] + w
+            }) && (0..self.d).any(|j| self.width(j, c.level) > s[j])
+        })
     }
 }
 
-/// Widths (user coordinates) and locations of the modes, per unknown.
-pub struct ModeScales {
-    pub location: Vec<Vec<f64>>,
-    pub sd: Vec<Vec<f64>>,
-}
-
-/// How many standard deviations around each mode an unbounded grid spans at first.
-const SPAN: f64 = 12.0;
-/// Tolerance between successive refinements, in nats.
-const TOLERANCE: f64 = 2e-4;
-/// Most times the grid is widened along open directions.
-const MAX_WIDENINGS: usize = 7;
-
-fn build_axis(i: usize, t: Transform, scales: &ModeScales, widen: [u32; 2]) -> Axis {
-    let locs: Vec<f64> = scales.location.iter().map(|l| l[i]).collect();
-    let sds: Vec<f64> = scales.sd.iter().map(|s| s[i].max(1e-300)).collect();
-    let min_sd = sds.iter().copied().fold(f64::INFINITY, f64::min);
-    let grow = |w: f64, k: u32| w * (1u64 << (2 * k)) as f64;
-    // Intervals around modes, merged where they overlap.
-    let mut spans: Vec<(f64, f64, f64)> = locs
+/// The modes' locations and widths in the grid's coordinates.
+fn modes_in_u(target: &Target, axes: &[GridAxis], modes: &[Mode]) -> Vec<(Vec<f64>, Vec<f64>)> {
+    modes
         .iter()
-        .zip(&sds)
-        .map(|(m, s)| (m - SPAN * s, m + SPAN * s, *s))
-        .collect();
-    let (lo_bound, hi_bound) = match t {
-        Transform::Free => (None, None),
-        Transform::Lower(l) => (Some(l), None),
-        Transform::Upper(u) => (None, Some(u)),
-        Transform::Interval(l, u) => (Some(l), Some(u)),
-    };
-    if let (Some(l), Some(u)) = (lo_bound, hi_bound) {
-        // A box: one segment, resolved to the narrowest mode.
-        let n = (((u - l) / (0.5 * min_sd)).ceil() as usize).clamp(32, 1 << 16);
-        return Axis {
-            segments: vec![Segment { a: l, b: u, n }],
-            open_low: false,
-            open_high: false,
-        };
-    }
-    spans.sort_by(|a, b| a.0.total_cmp(&b.0));
-    let mut merged: Vec<(f64, f64, f64)> = Vec::new();
-    for s in spans {
-        match merged.last_mut() {
-            Some(last) if s.0 <= last.1 => {
-                last.1 = last.1.max(s.1);
-                last.2 = last.2.min(s.2);
+        .map(|m| {
+            let sd = mode_sd_z(m);
+            let mut u = Vec::new();
+            let mut s = Vec::new();
+            for (j, a) in axes.iter().enumerate() {
+                let (uj, sj) = match a.spacing {
+                    Spacing::Log => (m.z[j], sd[j]),
+                    Spacing::Linear => {
+                        let (x, dx, _, _) = target.transforms[j].with_jacobian(m.z[j]);
+                        (x, sd[j] * dx.abs())
+                    }
+                };
+                u.push(uj);
+                s.push(if sj.is_finite() && sj > 0.0 {
+                    sj
+                } else {
+                    f64::INFINITY
+                });
             }
-            _ => merged.push(s),
+            (u, s)
+        })
+        .collect()
+}
+
+/// One integration of the region given by `axes`: (log Z, error in nats, converged, log of the
+/// mass in the edge cells of open sides per axis, base cells per axis, evaluations).
+struct Pass {
+    log_z: f64,
+    error: f64,
+    converged: bool,
+    edge: Vec<f64>,
+    cells: Vec<usize>,
+    narrowest: Vec<f64>,
+    budget_out: bool,
+}
+
+fn integrate(
+    target: &Target,
+    axes: &[GridAxis],
+    open: &[[bool; 2]],
+    modes: &[Mode],
+    max_points: f64,
+    evaluations: &mut u64,
+) -> Pass {
+    let d = axes.len();
+    let base_cells = BASE_CELLS[d - 1].min(0.25 * max_points).max(1.0);
+    let per_axis = ((exp(ln(base_cells) / d as f64)) as usize).max(4);
+    let cells_per_axis = vec![per_axis; d];
+    let base: Vec<f64> = axes
+        .iter()
+        .map(|a| (a.upper - a.lower) / per_axis as f64)
+        .collect();
+    let mut g = Grid {
+        axes: axes.to_vec(),
+        base: base.clone(),
+        d,
+        evaluations: 0,
+        x: vec![0.0; d],
+        ev: target.evaluator(),
+    };
+    let mode_u = modes_in_u(target, axes, modes);
+    // The base grid.
+    let n_total = if d == 1 {
+        per_axis
+    } else {
+        per_axis * per_axis
+    };
+    let mut cells: Vec<Cell> = Vec::with_capacity(n_total);
+    for flat in 0..n_total {
+        let idx = [flat % per_axis, flat / per_axis];
+        let mut lo = [0.0; 2];
+        for j in 0..d {
+            lo[j] = axes[j].lower + idx[j] as f64 * base[j];
         }
-    }
-    let mut lo = merged.first().map_or(-1.0, |m| m.0);
-    let mut hi = merged.last().map_or(1.0, |m| m.1);
-    let total = hi - lo;
-    lo -= grow(total, widen[0]) - total;
-    hi += grow(total, widen[1]) - total;
-    if let Some(l) = lo_bound {
-        lo = l;
-    }
-    if let Some(u) = hi_bound {
-        hi = u;
-    }
-    // Segments: each merged span at its own resolution, and the gaps between them coarser.
-    let mut segments = Vec::new();
-    let mut cursor = lo;
-    for (a, b, sd) in merged {
-        let (a, b) = (a.max(lo), b.min(hi));
-        if b <= a {
-            continue;
-        }
-        if a > cursor {
-            segments.push(Segment {
-                a: cursor,
-                b: a,
-                n: 32,
-            });
-        }
-        let a = a.max(cursor);
-        if b > a {
-            let n = (((b - a) / (0.5 * sd)).ceil() as usize).clamp(32, 1 << 16);
-            segments.push(Segment { a, b, n });
-            cursor = b;
-        }
-    }
-    if hi > cursor {
-        segments.push(Segment {
-            a: cursor,
-            b: hi,
-            n: 32,
+        let log_m = g.log_m(lo, 0);
+        cells.push(Cell {
+            lo,
+            level: 0,
+            log_m,
         });
     }
-    Axis {
-        segments,
-        open_low: lo_bound.is_none(),
-        open_high: hi_bound.is_none(),
+    // Edge mass of open sides, from the base grid.
+    let mut edge = vec![f64::NEG_INFINITY; d];
+    for (flat, c) in cells.iter().enumerate() {
+        let idx = [flat % per_axis, flat / per_axis];
+        for j in 0..d {
+            if (open[j][0] && idx[j] == 0) || (open[j][1] && idx[j] + 1 == per_axis) {
+                edge[j] = crate::common::maths::log_add_exp(edge[j], c.log_m);
+            }
+        }
     }
-}
-
-/// One pass over the grid: (log Z, log of the mass in edge cells of open directions, per axis).
-fn integrate(target: &Target, axes: &[Axis], level: u32) -> (f64, Vec<f64>) {
-    let mut ev = target.evaluator();
-    let px: Vec<Vec<(f64, f64)>> = axes.iter().map(|a| a.points(level)).collect();
-    let mut total = f64::NEG_INFINITY;
-    let mut edge = vec![f64::NEG_INFINITY; axes.len()];
-    let is_edge = |axis: usize, j: usize, n: usize| -> bool {
-        (axes[axis].open_low && j == 0) || (axes[axis].open_high && j + 1 == n)
-    };
-    // Streaming log-sum-exp with a shared running maximum.
-    let add = |acc: &mut f64, v: f64| {
-        *acc = log_add_exp(*acc, v);
-    };
-    if axes.len() == 1 {
-        let n = px[0].len();
-        for (j, &(x, w)) in px[0].iter().enumerate() {
-            let e = ev.user_energy(&[x]);
-            if e.is_finite() {
-                let v = -e + ln(w);
-                add(&mut total, v);
-                if is_edge(0, j, n) {
-                    add(&mut edge[0], v);
+    let top = cells
+        .iter()
+        .map(|c| c.log_m)
+        .fold(f64::NEG_INFINITY, f64::max);
+    if !top.is_finite() {
+        *evaluations += g.evaluations;
+        return Pass {
+            log_z: f64::NEG_INFINITY,
+            error: 0.0,
+            converged: true,
+            edge,
+            cells: cells_per_axis,
+            narrowest: base.iter().map(|b| 0.5 * b).collect(),
+            budget_out: false,
+        };
+    }
+    // Which base cells to split first: those that matter, or border one that does.
+    let cut = top + ln(NEGLIGIBLE);
+    let matters: Vec<bool> = cells.iter().map(|c| c.log_m > cut).collect();
+    let mut active: Vec<Cell> = Vec::new();
+    let mut frozen: Vec<f64> = Vec::new();
+    for (flat, c) in cells.iter().enumerate() {
+        let idx = [flat % per_axis, flat / per_axis];
+        let mut near = matters[flat];
+        if !near {
+            'n: for dy in -1i64..=1 {
+                for dx in -1i64..=1 {
+                    let (i, k) = (idx[0] as i64 + dx, idx[1] as i64 + dy);
+                    if d == 1 && dy != 0 {
+                        continue;
+                    }
+                    if i < 0 || i >= per_axis as i64 || k < 0 || (d == 2 && k >= per_axis as i64) {
+                        continue;
+                    }
+                    let f = if d == 1 {
+                        i as usize
+                    } else {
+                        i as usize + k as usize * per_axis
+                    };
+                    if matters[f] {
+                        near = true;
+                        break 'n;
+                    }
                 }
             }
         }
-    } else {
-        let (nx, ny) = (px[0].len(), px[1].len());
-        let mut row = Vec::with_capacity(ny);
-        for (i, &(x, wx)) in px[0].iter().enumerate() {
-            row.clear();
-            for (j, &(y, wy)) in px[1].iter().enumerate() {
-                let e = ev.user_energy(&[x, y]);
-                if e.is_finite() {
-                    let v = -e + ln(wx * wy);
-                    row.push(v);
-                    if is_edge(0, i, nx) {
-                        add(&mut edge[0], v);
-                    }
-                    if is_edge(1, j, ny) {
-                        add(&mut edge[1], v);
-                    }
-                }
-            }
-            add(&mut total, crate::common::maths::log_sum_exp(&row));
+        if near || g.near_narrow_mode(c, &mode_u) {
+            active.push(*c);
+        } else {
+            frozen.push(c.log_m);
         }
     }
-    (total, edge)
+    let mut converged = false;
+    let mut budget_out = false;
+    // The change of the whole estimate made by the last round of splitting, in nats: the error
+    // estimate of the value before it (infinite before the first round).
+    let mut change = f64::INFINITY;
+    for _ in 0..MAX_LEVELS {
+        if active.is_empty() {
+            converged = change < TOLERANCE || change.is_infinite();
+            if change.is_infinite() {
+                change = 0.0;
+            }
+            break;
+        }
+        if (g.evaluations as f64) + (active.len() << d) as f64 > max_points {
+            budget_out = true;
+            break;
+        }
+        // Split every active cell.
+        let mut split: Vec<(Vec<Cell>, f64, f64, bool)> = Vec::with_capacity(active.len());
+        for c in &active {
+            let kids = g.children(c);
+            let fine = log_sum_exp(&kids.iter().map(|k| k.log_m).collect::<Vec<_>>());
+            let narrow = kids.iter().any(|k| g.near_narrow_mode(k, &mode_u));
+            split.push((kids, fine, c.log_m, narrow));
+        }
+        let mut before: Vec<f64> = frozen.clone();
+        before.extend(split.iter().map(|s| s.2));
+        let mut after: Vec<f64> = frozen.clone();
+        after.extend(split.iter().map(|s| s.1));
+        let (log_before, log_after) = (log_sum_exp(&before), log_sum_exp(&after));
+        if !log_after.is_finite() {
+            converged = true;
+            change = 0.0;
+            frozen = after;
+            active.clear();
+            break;
+        }
+        change = if log_before.is_finite() {
+            (log_after - log_before).abs()
+        } else {
+            f64::INFINITY
+        };
+        let narrow_left = split.iter().any(|s| s.3);
+        if change < TOLERANCE && !narrow_left {
+            frozen.extend(split.iter().map(|s| s.1));
+            converged = true;
+            active.clear();
+            break;
+        }
+        // Split again every cell whose split still mattered (its |coarse − fine| above a
+        // thousandth of the tolerance, relative to the whole) or that lies near a known mode
+        // narrower than itself; freeze the others at their fine value.
+        let mut next = Vec::new();
+        for (kids, fine, coarse, narrow) in split {
+            let moved = (exp(coarse - log_after) - exp(fine - log_after)).abs();
+            if narrow || moved > 1e-3 * TOLERANCE {
+                next.extend(kids);
+            } else {
+                frozen.push(fine);
+            }
+        }
+        active = next;
+    }
+    let mut parts = frozen;
+    parts.extend(active.iter().map(|c| c.log_m));
+    let log_z = log_sum_exp(&parts);
+    let error = change;
+    *evaluations += g.evaluations;
+    Pass {
+        log_z,
+        // A relative error of the integral is, to first order, an error in nats of its log.
+        error,
+        converged,
+        edge,
+        cells: cells_per_axis,
+        narrowest: base.iter().map(|b| 0.5 * b).collect(),
+        budget_out,
+    }
 }
 
-/// Grid quadrature of log Z for `D ≤ 2`; `None` for larger dimensions.
-/// `max_work`: budget in tape instructions (the cost of one evaluation times grid points).
+/// Grid quadrature of log Z for `D ≤ 2` over the searched region (see the module note);
+/// `None` for larger dimensions. `max_work`: budget in tape instructions (the cost of one
+/// evaluation times the evaluations).
 pub fn grid_log_z(
     target: &Target,
-    scales: &ModeScales,
+    modes: &[Mode],
     work_per_point: usize,
     max_work: f64,
 ) -> Option<GridResult> {
@@ -219,101 +379,84 @@ pub fn grid_log_z(
     if d == 0 || d > 2 {
         return None;
     }
-    let max_points =
-        (max_work / work_per_point.max(1) as f64).min(if d == 1 { 4e6 } else { 3.2e7 });
+    let max_points = (max_work / work_per_point.max(1) as f64).min(4e7);
+    let mut axes = search_axes(target, modes);
+    // Open sides: an unbounded direction, or the far side of a one-sided unknown (its near
+    // side, log distance → −∞, is open too: mass can pile up at the bound).
+    let open: Vec<[bool; 2]> = target
+        .transforms
+        .iter()
+        .map(|t| match t {
+            crate::model::target::Transform::Interval(..) => [false, false],
+            _ => [true, true],
+        })
+        .collect();
     let mut warnings = Vec::new();
-    let mut widen = vec![[0u32; 2]; d];
-    let mut result: Option<GridResult> = None;
     let mut increments: Vec<f64> = Vec::new();
+    let mut evaluations = 0u64;
+    let mut result: Option<GridResult> = None;
     let mut edge_by_axis = vec![0.0; d];
-    // Widen open edges (×4 each time) while they carry mass or widening still adds mass,
-    // refining at each extent.
     for _extent in 0..MAX_WIDENINGS {
-        let axes: Vec<Axis> = (0..d)
-            .map(|i| build_axis(i, target.transforms[i], scales, widen[i]))
-            .collect();
-        let mut prev: Option<f64> = None;
-        let mut level = 0;
-        let mut last = (f64::NEG_INFINITY, vec![f64::NEG_INFINITY; d]);
-        let mut converged = false;
-        let mut change = f64::INFINITY;
-        loop {
-            let points: f64 = axes.iter().map(|a| a.count(level) as f64).product();
-            if points > max_points {
-                break;
-            }
-            last = integrate(target, &axes, level);
-            if let Some(p) = prev {
-                change = (last.0 - p).abs();
-                if change < TOLERANCE || (last.0 == f64::NEG_INFINITY && p == f64::NEG_INFINITY) {
-                    converged = true;
-                    break;
-                }
-            }
-            prev = Some(last.0);
-            level += 1;
-            if level > 12 {
-                break;
-            }
-        }
-        if prev.is_none() && !converged {
-            if let Some(r) = result.take() {
-                // The last extent that fitted the budget stands.
-                result = Some(r);
-                break;
-            }
-            // Not even the coarsest grid fits the budget.
-            let cost =
-                axes.iter().map(|a| a.count(0) as f64).product::<f64>() * work_per_point as f64;
+        if 4.0 * (BASE_CELLS[d - 1].min(0.25 * max_points)) > max_points
+            && BASE_CELLS[d - 1].min(0.25 * max_points) < 16.0
+        {
             warnings.push(format!(
-                "grid quadrature skipped: it would need about {:.1e} operations, over the budget of {:.1e}",
-                cost, max_work
+                "grid quadrature skipped: one evaluation costs about {work_per_point} operations, and even a coarse grid is over the budget of {max_work:.1e}"
             ));
             return Some(GridResult {
                 log_z: f64::NAN,
                 change: f64::INFINITY,
-                points_per_axis: axes.iter().map(|a| a.count(0)).collect(),
+                points_per_axis: vec![0; d],
                 converged: false,
                 edge_mass: f64::NAN,
                 growing_along: None,
+                region: axes.iter().map(|a| a.range()).collect(),
+                scale: axes.iter().map(|a| a.spacing).collect(),
+                narrowest: vec![f64::NAN; d],
+                evaluations,
                 warnings,
             });
         }
-        edge_by_axis = last
-            .1
+        let pass = integrate(target, &axes, &open, modes, max_points, &mut evaluations);
+        edge_by_axis = pass
+            .edge
             .iter()
-            .map(|e| exp(e - last.0))
+            .map(|e| exp(e - pass.log_z))
             .map(|e| if e.is_finite() { e } else { 0.0 })
             .collect();
         let edge_mass = edge_by_axis.iter().sum::<f64>();
-        let used_level = if converged {
-            level
-        } else {
-            level.saturating_sub(1)
-        };
         if let Some(r) = &result {
-            increments.push(last.0 - r.log_z);
+            increments.push(pass.log_z - r.log_z);
         }
+        let budget_out = pass.budget_out;
         result = Some(GridResult {
-            log_z: last.0,
-            change,
-            points_per_axis: axes.iter().map(|a| a.count(used_level)).collect(),
-            converged,
+            log_z: pass.log_z,
+            change: pass.error,
+            points_per_axis: pass.cells,
+            converged: pass.converged,
             edge_mass,
             growing_along: None,
+            region: axes.iter().map(|a| a.range()).collect(),
+            scale: axes.iter().map(|a| a.spacing).collect(),
+            narrowest: pass.narrowest,
+            evaluations,
             warnings: Vec::new(),
         });
-        let open = axes.iter().any(|a| a.open_low || a.open_high);
         let still_gaining = increments.last().is_some_and(|inc| *inc > TOLERANCE);
-        if !open || (!(edge_mass > 1e-9) && !still_gaining) {
+        let any_open = open.iter().any(|o| o[0] || o[1]);
+        if !any_open || budget_out || (!(edge_mass > 1e-9) && !still_gaining) {
             break;
         }
-        for (i, a) in axes.iter().enumerate() {
-            if a.open_low {
-                widen[i][0] += 1;
+        if (evaluations as f64) > max_points {
+            break;
+        }
+        for (j, a) in axes.iter_mut().enumerate() {
+            let w = a.upper - a.lower;
+            if open[j][0] {
+                a.lower -= 1.5 * w;
             }
-            if a.open_high {
-                widen[i][1] += 1;
+            if open[j][1] {
+                a.upper += 1.5 * w;
             }
         }
     }
@@ -332,7 +475,7 @@ pub fn grid_log_z(
     let mut r = result?;
     if !r.converged {
         warnings.push(format!(
-            "grid quadrature did not settle within its budget: the last two refinements differ by {:.2e} nats",
+            "grid quadrature ran out of its work budget before its error estimate fell below {TOLERANCE:.0e} nats: its value carries an error estimate of {:.2e} nats",
             r.change
         ));
     }

@@ -14,19 +14,23 @@ use crate::model::target::Target;
 use crate::sample::series::{mean_square, Series};
 use crate::sample::{Plan, Record};
 use crate::search::modes::mahalanobis2;
+use crate::search::FoundBy;
 use serde::Serialize;
 
 #[derive(Clone, Debug, Serialize)]
 pub struct ModeEstimate {
     /// Location in the user's coordinates.
     pub location: Vec<f64>,
+    /// Share of the target's weight in draws assigned to this mode (0 when not visited).
     pub mass: f64,
-    pub mass_se: f64,
+    /// Its standard error; null when no draw near β = 1 visited the mode (its mass is then
+    /// not estimated, rather than 0 ± 0).
+    pub mass_se: Option<f64>,
     pub laplace_mass: f64,
     /// Whether draws near β = 1 (β ≥ 0.5) were assigned to this mode.
     pub visited: bool,
-    /// "optimiser" or "sampler" (found by optimising from draws in an unexplored region).
-    pub found_by: String,
+    /// How the mode was first found.
+    pub found_by: FoundBy,
 }
 
 #[derive(Clone, Debug, Serialize)]
@@ -56,6 +60,8 @@ pub struct Diagnostics {
     pub step_sizes: Vec<f64>,
     /// Importance sampling from the base: effective sample size of its weights.
     pub is_ess: f64,
+    /// Importance sampling from the base: Pareto k̂ of its weights (`estimate::psis`).
+    pub is_khat: f64,
     /// Share of the target weight in draws far (squared Mahalanobis distance above 30 + 4D)
     /// from the mode they are assigned to.
     pub far_from_modes: f64,
@@ -211,7 +217,6 @@ pub fn estimate(
 
     // Mode masses.
     let laplace_masses = laplace.masses();
-    let optimiser_modes = plan.modes.len() - plan.new_modes;
     let modes: Vec<ModeEstimate> = (0..plan.modes.len())
         .map(|km| {
             let ind: Vec<f64> = mode
@@ -221,23 +226,21 @@ pub fn estimate(
             let mass = ind.iter().zip(&wn).map(|(a, w)| a * w).sum::<f64>() / n;
             let (se, _) = weighted_mean_se(&ind, &wn, mass, &series);
             let visited = (0..total).any(|i| mode[i] == km && beta[i] >= 0.5);
+            let se = visited.then_some(se);
             ModeEstimate {
                 location: plan.modes[km].x.clone(),
                 mass,
                 mass_se: se,
                 laplace_mass: laplace_masses[km],
                 visited,
-                found_by: if km < optimiser_modes {
-                    "optimiser".into()
-                } else {
-                    "sampler".into()
-                },
+                found_by: plan.modes[km].found_by,
             }
         })
         .collect();
 
     // Importance sampling from the base.
-    let (is_log_z, is_log_z_se, is_ess) = importance_check(target, plan, is_draws);
+    let is = importance_check(target, plan, is_draws);
+    let (is_log_z, is_log_z_se, is_ess) = (is.log_z, is.se, is.ess);
 
     let transitions: usize = records.iter().map(|r| r.transitions).sum();
     let acc: f64 = records
@@ -278,6 +281,7 @@ pub fn estimate(
         base_components: plan.base.q.components.len(),
         step_sizes: Vec::new(),
         is_ess,
+        is_khat: is.khat,
         far_from_modes: far_weight / n.max(1.0),
     };
     let est = Estimates {

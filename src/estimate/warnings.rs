@@ -56,10 +56,11 @@ pub fn warnings(
         ));
     }
     for c in checks {
-        if c.error.is_some() && !c.agrees {
+        if c.agrees == Some(false) {
             w.push(format!(
                 "the {} cross-check ({:.4}) disagrees with the sampler beyond their errors",
-                c.name, c.log_z
+                c.name.label(),
+                c.log_z
             ));
         }
     }

@@ -5,8 +5,9 @@
 //! unreliable.
 //! Must not: compute statistics; it only lays out what `run` produced, with `common::format`.
 
-use crate::common::format::{decimals4, num, pm, table};
+use crate::common::format::{decimals4, num, pm, se_text, table};
 use crate::run::{CheckOutcome, CompareOutcome, RunOutcome};
+use crate::search::{Coverage, FoundBy};
 use std::fmt::Write;
 
 fn bounds_text(lower: Option<f64>, upper: Option<f64>) -> String {
@@ -154,6 +155,7 @@ pub fn check_text(c: &CheckOutcome) -> String {
             .collect();
         let _ = writeln!(o, "  overall sd:   {}", sds.join(", "));
     }
+    coverage_text(&mut o, &c.mode_coverage);
     if !c.warnings.is_empty() {
         let _ = writeln!(o, "\nWarnings");
         for w in &c.warnings {
@@ -182,7 +184,19 @@ pub fn run_text(r: &RunOutcome) -> String {
         "  seed {}, {} chains × ({} warm-up + {} draws), method {:?}, integrator {:?}, {} energy evaluations",
         s.seed, s.chains, s.warmup, s.draws, s.method, s.integrator, r.gradient_evaluations
     );
+    let _ = writeln!(
+        o,
+        "\n{}\n  {}",
+        r.verdict.headline.to_uppercase(),
+        r.verdict.sentence
+    );
     let _ = writeln!(o, "\nlog Z = {}", pm(r.est.log_z, r.est.log_z_se));
+    if r.est.log_z_se < crate::common::format::SE_FLOOR {
+        let _ = writeln!(
+            o,
+            "  exact, given the modes found: the base equals the target to round-off, so what remains uncertain is whether every mode was found (below)"
+        );
+    }
     if let Some(cv) = &r.est.control_variates {
         if cv.used {
             let _ = writeln!(
@@ -204,22 +218,26 @@ pub fn run_text(r: &RunOutcome) -> String {
     ]];
     for c in &r.cross_checks {
         rows.push(vec![
-            c.name.clone(),
+            c.name.label().to_string(),
             format!("{:.4}", c.log_z),
             c.error.map_or("-".to_string(), |e| format!("{e:.1e}")),
             c.z_score
                 .map_or(format!("{:+.3} nats", r.est.log_z - c.log_z), |z| {
                     format!("{z:+.1} SE")
                 }),
-            if c.error.is_some() && !c.agrees {
-                "DISAGREES".into()
-            } else {
-                String::new()
+            match c.agrees {
+                Some(true) => "agrees".into(),
+                Some(false) => "DISAGREES".into(),
+                None => "does not vote".into(),
             },
         ]);
     }
     o.push_str(&table(&rows));
-    let _ = writeln!(o, "  verdict: {}", r.verdict);
+    for c in r.cross_checks.iter().filter(|c| !c.votes) {
+        if let Some(why) = &c.abstains_because {
+            let _ = writeln!(o, "  {} does not vote: {why}", c.name.label());
+        }
+    }
 
     let _ = writeln!(o, "\nModes");
     let mut h = vec!["#".to_string()];
@@ -238,11 +256,23 @@ pub fn run_text(r: &RunOutcome) -> String {
         let mut row = vec![format!(
             "{}{}",
             k + 1,
-            if m.found_by == "sampler" { "+" } else { "" }
+            if m.found_by == FoundBy::Chains {
+                "+"
+            } else {
+                ""
+            }
         )];
         row.extend(m.location.iter().map(|v| num(*v)));
-        row.push(format!("{:.4}", m.mass));
-        row.push(format!("{:.4}", m.mass_se));
+        match m.mass_se {
+            Some(se) => {
+                row.push(format!("{:.4}", m.mass));
+                row.push(se_text(se));
+            }
+            None => {
+                row.push("not visited".into());
+                row.push(String::new());
+            }
+        }
         row.push(format!("{:.4}", m.laplace_mass));
         row.push(if m.visited { "yes".into() } else { "NO".into() });
         if let Some(ex) = &r.exact_masses {
@@ -254,9 +284,10 @@ pub fn run_text(r: &RunOutcome) -> String {
     if r.est.modes.len() > 30 {
         let _ = writeln!(o, "  … and {} more (see --json)", r.est.modes.len() - 30);
     }
-    if r.est.modes.iter().any(|m| m.found_by == "sampler") {
-        let _ = writeln!(o, "  + found by the chains, not by the optimiser");
+    if r.est.modes.iter().any(|m| m.found_by == FoundBy::Chains) {
+        let _ = writeln!(o, "  + found by the chains, not by the mode search");
     }
+    coverage_text(&mut o, &r.mode_coverage);
 
     let _ = writeln!(o, "\nUnknowns (target draws, weighted by p(β=1|x))");
     let mut rows = vec![
@@ -334,15 +365,24 @@ pub fn compare_text(c: &CompareOutcome, name_a: &str, name_b: &str) -> String {
         "  B: {name_b}  log Z = {}",
         pm(c.b.est.log_z, c.b.est.log_z_se)
     );
+    let bf = &c.bayes_factor;
     let _ = writeln!(
         o,
         "\nlog Bayes factor log(Z_A / Z_B) = {}",
-        pm(c.log_bayes_factor, c.log_bayes_factor_se)
+        pm(bf.log_bayes_factor, bf.log_bayes_factor_se)
     );
+    match &bf.refused_because {
+        Some(why) => {
+            let _ = writeln!(o, "  NOT TO BE USED: {why}");
+        }
+        None => {
+            let _ = writeln!(o, "  {}", bf.meaning);
+        }
+    }
     let _ = writeln!(
         o,
-        "  A's verdict: {}\n  B's verdict: {}",
-        c.a.verdict, c.b.verdict
+        "  A: {}\n  B: {}",
+        c.a.verdict.headline, c.b.verdict.headline
     );
     if c.warnings.is_empty() {
         let _ = writeln!(o, "\nNo warnings.");
@@ -353,4 +393,31 @@ pub fn compare_text(c: &CompareOutcome, name_a: &str, name_b: &str) -> String {
         }
     }
     o
+}
+
+/// The mode search's evidence, for the run and check reports.
+fn coverage_text(o: &mut String, c: &Coverage) {
+    let _ = writeln!(o, "\nMode search");
+    let _ = writeln!(o, "  {}", c.summary);
+    let k = &c.counts;
+    let _ = writeln!(
+        o,
+        "  {} of {} starts ended in {} distinct modes, {} of them reached by only one start; chance that one more start finds a new mode {:.1}% (Good–Turing); expected modes not yet seen {} (Boender & Rinnooy Kan)",
+        k.converged,
+        c.starts,
+        k.distinct,
+        k.singletons,
+        100.0 * c.new_mode_chance,
+        c.expected_unseen.map_or("unknown (too few starts)".to_string(), |u| format!("{u:.2}"))
+    );
+    if c.found_outward + c.found_by_chains > 0 {
+        let _ = writeln!(
+            o,
+            "  found otherwise: {} from known modes, {} by the chains",
+            c.found_outward, c.found_by_chains
+        );
+    }
+    for l in &c.limitations {
+        let _ = writeln!(o, "  limitation: {}", l.sentence);
+    }
 }

@@ -15,12 +15,12 @@ pub mod settings;
 
 pub use density::log_density_grid;
 pub use outcome::{
-    compare, finish_run, run, run_prepared, CompareOutcome, PlotDraws, RunOutcome, RunResult,
-    IS_DRAWS,
+    bayes_factor, compare, finish_run, run, run_prepared, BayesFactor, CompareOutcome, Evidence,
+    PlotDraws, RunOutcome, RunResult, IS_DRAWS,
 };
 pub use prepare::{
-    check, check_with_grid_budget, mode_scales, prepare, CheckOutcome, Exact, ModeSummary,
-    Prepared, Unknown, DEFAULT_SEED, GRID_WORK,
+    check, check_with_grid_budget, prepare, CheckOutcome, Exact, ModeSummary, Prepared, Unknown,
+    DEFAULT_SEED, GRID_WORK,
 };
 pub use session::{Progress, RunningLogZ, Session};
 pub use settings::{

@@ -9,14 +9,22 @@ use super::prepare::{unknowns_of, Prepared, Unknown};
 use super::session::Session;
 use super::settings::{Overrides, RunSettings};
 use crate::common::error::KilnError;
+use crate::common::format::num;
+use crate::common::maths::sqrt;
 use crate::common::stats::resample;
+use crate::estimate::crosscheck::Agreement;
+use crate::estimate::crosscheck::CheckInputs;
+use crate::estimate::crosscheck::GridValue;
+use crate::estimate::crosscheck::ImportanceValue;
 use crate::estimate::quadrature::GridResult;
+use crate::estimate::Verdict;
 use crate::estimate::{
     cross_checks, estimate, verdict, warnings, CrossCheck, Estimates, WeightedDraws,
 };
 use crate::model::spec::Spec;
 use crate::sample::{SamplerOptions, Stepper};
-use serde::Serialize;
+use crate::search::Coverage;
+use serde::{Deserialize, Serialize};
 
 /// Draws of the importance-sampling cross-check.
 pub const IS_DRAWS: usize = 4000;
@@ -36,7 +44,9 @@ pub struct RunOutcome {
     pub grid_log_z: Option<f64>,
     pub exact_log_z: Option<f64>,
     pub cross_checks: Vec<CrossCheck>,
-    pub verdict: String,
+    pub verdict: Verdict,
+    /// The mode search's evidence that every mode was found (with the modes the chains found).
+    pub mode_coverage: Coverage,
     pub warnings: Vec<String>,
     pub notes: Vec<String>,
     pub seed: u64,
@@ -96,18 +106,26 @@ pub fn finish_run(
     est.diagnostics.step_sizes = stepper.step_sizes();
     let exact = p.target.mixture_truth();
     let exact_log_z = exact.as_ref().map(|t| t.log_z);
-    let grid_pair = grid
-        .filter(|g| g.log_z.is_finite())
-        .map(|g| (g.log_z, g.change));
-    let checks = cross_checks(
-        est.log_z,
-        est.log_z_se,
-        exact_log_z,
-        grid_pair,
-        (est.is_log_z, est.is_log_z_se, est.diagnostics.is_ess),
-        laplace_log_z,
-    );
-    let v = verdict(&checks, est.log_z, est.log_z_se);
+    let inputs = CheckInputs {
+        exact: exact_log_z,
+        grid: grid.map(|g| GridValue {
+            log_z: g.log_z,
+            error: g.change,
+            converged: g.converged,
+        }),
+        importance: Some(ImportanceValue {
+            log_z: est.is_log_z,
+            se: est.is_log_z_se,
+            ess: est.diagnostics.is_ess,
+            khat: est.diagnostics.is_khat,
+        }),
+        laplace: laplace_log_z,
+        modes_gaussian: plan.modes.iter().all(|m| !m.non_quadratic),
+    };
+    let checks = cross_checks(est.log_z, est.log_z_se, &inputs);
+    let mut coverage = p.search.coverage.clone();
+    coverage.add_found_by_chains(plan.new_modes);
+    let v = verdict(&checks, est.log_z, &coverage);
     let names = p.target.names.clone();
     let iterations = plan.options.draws * plan.options.chains;
     let mut warns = warnings(&est, &checks, &names, plan.is_tempered(), iterations);
@@ -145,10 +163,11 @@ pub fn finish_run(
         settings,
         est,
         laplace_log_z,
-        grid_log_z: grid_pair.map(|g| g.0),
+        grid_log_z: grid.map(|g| g.log_z).filter(|v| v.is_finite()),
         exact_log_z,
         cross_checks: checks,
         verdict: v,
+        mode_coverage: coverage,
         warnings: warns,
         notes,
         seed: p.seed,
@@ -166,32 +185,129 @@ fn dist2(a: &[f64], b: &[f64]) -> f64 {
     a.iter().zip(b).map(|(x, y)| (x - y) * (x - y)).sum()
 }
 
+/// What a comparison reads of each run (the page sends these fields of each run's result).
+#[derive(Clone, Debug, Serialize, Deserialize)]
+pub struct Evidence {
+    pub log_z: f64,
+    pub log_z_se: f64,
+    pub verdict: VerdictBrief,
+}
+
+/// The verdict's state and whether the search was limited.
+#[derive(Clone, Copy, Debug, Serialize, Deserialize)]
+pub struct VerdictBrief {
+    pub state: Agreement,
+    pub search_limited: bool,
+}
+
+impl Evidence {
+    pub fn of(r: &RunOutcome) -> Evidence {
+        Evidence {
+            log_z: r.est.log_z,
+            log_z_se: r.est.log_z_se,
+            verdict: VerdictBrief {
+                state: r.verdict.state,
+                search_limited: r.verdict.search_limited,
+            },
+        }
+    }
+}
+
+/// log(Z_A / Z_B) ± SE from two independent runs, and what it may be read as.
+#[derive(Clone, Debug, Serialize)]
+pub struct BayesFactor {
+    pub log_bayes_factor: f64,
+    pub log_bayes_factor_se: f64,
+    /// False when either run's verdict is not "agree": the number is then not to be used.
+    pub judged: bool,
+    /// Why it is not judged.
+    pub refused_because: Option<String>,
+    /// Whether the difference is within twice its standard error (the runs cannot tell the
+    /// models apart).
+    pub within_errors: bool,
+    /// What it means, in plain words.
+    pub meaning: String,
+}
+
+/// The one implementation of the comparison of two runs (the command line and the page).
+pub fn bayes_factor(a: &Evidence, b: &Evidence) -> BayesFactor {
+    let lbf = a.log_z - b.log_z;
+    let se = sqrt(a.log_z_se * a.log_z_se + b.log_z_se * b.log_z_se);
+    let not_agreed = |name: &str, e: &Evidence| -> Option<String> {
+        match e.verdict.state {
+            Agreement::Agree => None,
+            Agreement::Disagree => Some(format!("{name}'s cross-checks disagree")),
+            Agreement::NotEnoughEvidence => {
+                Some(format!("{name}'s log Z has no independent check"))
+            }
+        }
+    };
+    let refusals: Vec<String> = [not_agreed("A", a), not_agreed("B", b)]
+        .into_iter()
+        .flatten()
+        .collect();
+    let refused_because = (!refusals.is_empty()).then(|| {
+        format!(
+            "{}: resolve that before comparing the models",
+            refusals.join(" and ")
+        )
+    });
+    let within_errors = lbf.abs() <= 2.0 * se;
+    let meaning = if !lbf.is_finite() || !se.is_finite() {
+        "no comparison: a log Z is not finite".to_string()
+    } else if within_errors {
+        format!(
+            "the two models explain the data about equally well: their difference, {lbf:.3} nats, is within twice its standard error"
+        )
+    } else {
+        let (better, worse, by) = if lbf > 0.0 {
+            ("A", "B", lbf)
+        } else {
+            ("B", "A", -lbf)
+        };
+        format!(
+            "the data are about {} times as probable under model {better} as under model {worse} (a difference of {by:.3} nats in log evidence)",
+            num(crate::common::maths::exp(by))
+        )
+    };
+    let limited: Vec<&str> = [("A", a), ("B", b)]
+        .into_iter()
+        .filter(|(_, e)| e.verdict.search_limited)
+        .map(|(n, _)| n)
+        .collect();
+    let meaning = if limited.is_empty() {
+        meaning
+    } else {
+        format!(
+            "{meaning}; {}'s mode search was limited, so this holds given the modes found",
+            limited.join(" and ")
+        )
+    };
+    BayesFactor {
+        log_bayes_factor: lbf,
+        log_bayes_factor_se: se,
+        judged: refused_because.is_none(),
+        refused_because,
+        within_errors,
+        meaning,
+    }
+}
+
 /// What `kiln compare` reports: log(Z_A / Z_B) ± SE from two independent runs.
 #[derive(Clone, Debug, Serialize)]
 pub struct CompareOutcome {
-    pub log_bayes_factor: f64,
-    pub log_bayes_factor_se: f64,
+    pub bayes_factor: BayesFactor,
     pub a: RunOutcome,
     pub b: RunOutcome,
     pub warnings: Vec<String>,
 }
 
 pub fn compare(a: RunOutcome, b: RunOutcome) -> CompareOutcome {
-    let lbf = a.est.log_z - b.est.log_z;
-    let se = crate::common::maths::sqrt(
-        a.est.log_z_se * a.est.log_z_se + b.est.log_z_se * b.est.log_z_se,
-    );
+    let bf = bayes_factor(&Evidence::of(&a), &Evidence::of(&b));
     let mut warnings: Vec<String> = a.warnings.iter().map(|w| format!("A: {w}")).collect();
     warnings.extend(b.warnings.iter().map(|w| format!("B: {w}")));
-    if a.verdict.starts_with("DISAGREEMENT") {
-        warnings.push("A's cross-checks disagree: the Bayes factor inherits that doubt".into());
-    }
-    if b.verdict.starts_with("DISAGREEMENT") {
-        warnings.push("B's cross-checks disagree: the Bayes factor inherits that doubt".into());
-    }
     CompareOutcome {
-        log_bayes_factor: lbf,
-        log_bayes_factor_se: se,
+        bayes_factor: bf,
         a,
         b,
         warnings,
@@ -229,5 +345,46 @@ impl RunResult {
             mode: chosen.iter().map(|&i| self.draws.mode[i] + 1).collect(),
             beta: chosen.iter().map(|&i| self.draws.beta[i]).collect(),
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn ev(log_z: f64, log_z_se: f64, state: Agreement) -> Evidence {
+        Evidence {
+            log_z,
+            log_z_se,
+            verdict: VerdictBrief {
+                state,
+                search_limited: false,
+            },
+        }
+    }
+
+    #[test]
+    fn the_bayes_factor_combines_errors_and_refuses_without_agreement() {
+        // SEs 0.375 and 0.5 combine to √(0.140625 + 0.25) = 0.625 exactly; 2·SE = 1.25.
+        let bf = bayes_factor(
+            &ev(1.25, 0.375, Agreement::Agree),
+            &ev(0.0, 0.5, Agreement::Agree),
+        );
+        assert_eq!(bf.log_bayes_factor, 1.25);
+        assert_eq!(bf.log_bayes_factor_se, 0.625);
+        assert!(bf.within_errors && bf.judged && bf.refused_because.is_none());
+        let bf = bayes_factor(
+            &ev(-3.2, 0.03, Agreement::Agree),
+            &ev(-4.0, 0.04, Agreement::Agree),
+        );
+        assert!(!bf.within_errors);
+        assert!(bf.meaning.contains("model A"), "{}", bf.meaning);
+        let bf = bayes_factor(
+            &ev(-3.2, 0.03, Agreement::Disagree),
+            &ev(-4.0, 0.04, Agreement::NotEnoughEvidence),
+        );
+        assert!(!bf.judged);
+        let why = bf.refused_because.unwrap();
+        assert!(why.contains("A's cross-checks disagree") && why.contains("B's log Z"));
     }
 }

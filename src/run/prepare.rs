@@ -5,11 +5,12 @@
 //! Must not: sample, print or format numbers.
 
 use crate::common::error::KilnError;
-use crate::estimate::quadrature::{grid_log_z, GridResult, ModeScales};
+use crate::estimate::quadrature::{grid_log_z, GridResult};
 use crate::model::spec::Spec;
 use crate::model::target::{MixtureTruth, Target};
 use crate::search::laplace::Laplace;
-use crate::search::{find_modes, ModeSearch, SearchOptions};
+use crate::search::scan::mode_sd;
+use crate::search::{find_modes, Coverage, FoundBy, ModeSearch, SearchOptions};
 use serde::Serialize;
 
 /// Default seed when the spec gives none (runs are always reproducible).
@@ -34,8 +35,9 @@ pub struct ModeSummary {
     pub laplace_mass: f64,
     /// Standard deviations in the user's coordinates, from the Laplace approximation.
     pub sd: Vec<f64>,
-    /// Optimiser runs that ended here.
+    /// Scattered starts that ended here (0: found another way, see `found_by`).
     pub hits: usize,
+    pub found_by: FoundBy,
     /// True when the Hessian was replaced by measured widths (a non-Gaussian mode).
     pub non_quadratic: bool,
 }
@@ -70,6 +72,8 @@ pub struct CheckOutcome {
     pub exact: Option<Exact>,
     pub seed: u64,
     pub starts: usize,
+    /// The search's evidence that every mode was found.
+    pub mode_coverage: Coverage,
     pub gradient_evaluations: u64,
     pub warnings: Vec<String>,
 }
@@ -103,7 +107,7 @@ pub fn prepare(spec: &Spec) -> Result<Prepared, KilnError> {
     if let Some(s) = spec.settings.starts {
         // An explicit number of starts is honoured in full.
         opts.max_starts = s;
-        opts.early_stop = false;
+        opts.stop_rule = false;
     }
     let search = find_modes(&target, opts)?;
     let laplace = Laplace::from_modes(&search.modes)?;
@@ -113,24 +117,6 @@ pub fn prepare(spec: &Spec) -> Result<Prepared, KilnError> {
         laplace,
         seed,
     })
-}
-
-/// Mode locations and widths in the user's coordinates.
-pub fn mode_scales(p: &Prepared) -> ModeScales {
-    let mut location = Vec::new();
-    let mut sd = Vec::new();
-    for (k, m) in p.search.modes.iter().enumerate() {
-        let sd_z = p.laplace.component_sd(k);
-        location.push(m.x.clone());
-        sd.push(
-            sd_z.iter()
-                .zip(&m.z)
-                .zip(&p.target.transforms)
-                .map(|((s, z), t)| s * t.with_jacobian(*z).1.abs())
-                .collect(),
-        );
-    }
-    ModeScales { location, sd }
 }
 
 fn exact_of(t: &MixtureTruth) -> Exact {
@@ -153,7 +139,6 @@ pub fn check(spec: &Spec) -> Result<CheckOutcome, KilnError> {
 /// targets use a small one so that each case stays quick under instrumentation.
 pub fn check_with_grid_budget(spec: &Spec, grid_work: f64) -> Result<CheckOutcome, KilnError> {
     let p = prepare(spec)?;
-    let scales = mode_scales(&p);
     let masses = p.laplace.masses();
     let modes = p
         .search
@@ -164,13 +149,14 @@ pub fn check_with_grid_budget(spec: &Spec, grid_work: f64) -> Result<CheckOutcom
             location: m.x.clone(),
             energy: m.user_energy,
             laplace_mass: masses[k],
-            sd: scales.sd[k].clone(),
+            sd: mode_sd(&p.target, m),
             hits: m.hits,
+            found_by: m.found_by,
             non_quadratic: m.non_quadratic,
         })
         .collect();
     let work = p.target.evaluator_work();
-    let grid = grid_log_z(&p.target, &scales, work, grid_work);
+    let grid = grid_log_z(&p.target, &p.search.modes, work, grid_work);
     if let Some(axis) = grid.as_ref().and_then(|g| g.growing_along) {
         return Err(heavy_tail_error(&p.target.names[axis]));
     }
@@ -195,6 +181,7 @@ pub fn check_with_grid_budget(spec: &Spec, grid_work: f64) -> Result<CheckOutcom
         exact,
         seed: p.seed,
         starts: p.search.starts,
+        mode_coverage: p.search.coverage.clone(),
         gradient_evaluations: p.search.evaluations,
         warnings,
     })

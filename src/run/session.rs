@@ -5,7 +5,7 @@
 //! Must not: differ in any number from a whole run (`outcome::run` drives a session too).
 
 use super::outcome::{finish_run, RunResult};
-use super::prepare::{heavy_tail_error, mode_scales, prepare, Prepared, GRID_WORK};
+use super::prepare::{heavy_tail_error, prepare, Prepared, GRID_WORK};
 use super::settings::{run_settings, sampler_options, Overrides, RunSettings};
 use crate::common::error::KilnError;
 use crate::estimate::quadrature::{grid_log_z, GridResult};
@@ -57,10 +57,9 @@ impl Session {
         let mut seeded = spec.clone();
         seeded.settings.seed = Some(settings.seed);
         let prepared = prepare(&seeded)?;
-        let scales = mode_scales(&prepared);
         let grid = grid_log_z(
             &prepared.target,
-            &scales,
+            &prepared.search.modes,
             prepared.target.evaluator_work(),
             GRID_WORK,
         );

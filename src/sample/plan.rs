@@ -17,7 +17,7 @@ use crate::common::maths::{ln, sqrt};
 use crate::common::rng::{Purpose, Stream};
 use crate::model::target::Target;
 use crate::search::laplace::Laplace;
-use crate::search::modes::{mahalanobis2, merge_mode, mode_from, Mode};
+use crate::search::modes::{mahalanobis2, merge_mode, mode_from, FoundBy, Mode};
 use std::sync::Arc;
 
 /// What all chains share in a phase; changed only at synchronisation points.
@@ -231,7 +231,9 @@ impl Plan {
                 continue;
             }
             tried.push(z.clone());
-            if let Some(m) = mode_from(target, &mut ev, &z)? {
+            if let Some(mut m) = mode_from(target, &mut ev, &z)? {
+                m.hits = 0;
+                m.found_by = FoundBy::Chains;
                 if merge_mode(&mut self.modes, m) {
                     added += 1;
                 }

@@ -5,16 +5,21 @@
 //!
 //! Files: `starts` (where to start), `optimiser` (BFGS, line search, Hessian), `diagnose`
 //! (curvature check, saddles, improper densities), `modes` (the search as a whole, dedup),
-//! `outward` (barrier crossing, lattice completion), `laplace` (the mixture from the modes).
+//! `outward` (barrier crossing, lattice completion), `scan` (the dense scan in few unknowns and
+//! the searched region), `coverage` (how sure the search is that it found every mode: the
+//! estimators and the stopping rule), `laplace` (the mixture from the modes).
 //! Must not: sample or estimate.
 
+pub mod coverage;
 pub mod diagnose;
 pub mod laplace;
 pub mod modes;
 pub mod optimiser;
 pub mod outward;
+pub mod scan;
 pub mod starts;
 
+pub use coverage::Coverage;
 pub use laplace::Laplace;
-pub use modes::{find_modes, mahalanobis2, merge_mode, mode_from, Mode, ModeSearch};
+pub use modes::{find_modes, mahalanobis2, merge_mode, mode_from, FoundBy, Mode, ModeSearch};
 pub use starts::SearchOptions;

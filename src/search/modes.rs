@@ -6,16 +6,19 @@
 //! deviation) and [`mahalanobis2`].
 //! Must not: build the approximation from the modes (that is `laplace`) or sample.
 
+use super::coverage::{Coverage, Limitation, Range, StartCounts};
 use super::diagnose::{curvature_check, describe_point, escape_variable, improper, Curvature};
 use super::optimiser::{axpy, hessian, minimize, Descent};
 use super::outward::{hop_search, lattice_search};
+use super::scan::{mode_sd, mode_sd_z, scan, start_region, Spacing};
 use super::starts::{start_point, SearchOptions};
 use crate::common::error::KilnError;
 use crate::common::format::num;
 use crate::common::maths::sqrt;
 use crate::common::rng::{Purpose, Stream};
-use crate::model::target::{Target, TargetEval};
+use crate::model::target::{Target, TargetEval, Transform};
 use nalgebra::DMatrix;
+use serde::Serialize;
 
 /// A local minimum of the energy in unconstrained coordinates.
 #[derive(Clone, Debug)]
@@ -30,11 +33,29 @@ pub struct Mode {
     pub user_energy: f64,
     /// Hessian of the energy at `z`, row-major, as used for the Laplace approximation.
     pub hessian: Vec<f64>,
-    /// How many optimiser runs ended here.
+    /// How many of the scattered starts ended here (0 for a mode found another way).
     pub hits: usize,
+    /// How the mode was first found.
+    pub found_by: FoundBy,
     /// True when the finite-difference Hessian was replaced by curvatures measured along its
     /// eigenvectors because the mode is far from quadratic (see [`curvature_check`]).
     pub non_quadratic: bool,
+}
+
+/// How a mode was first found.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum FoundBy {
+    /// A scattered start.
+    Starts,
+    /// Crossing a barrier along a known mode's Hessian axis.
+    Barrier,
+    /// Repeating the step between neighbouring modes.
+    Lattice,
+    /// A local maximum of the dense scan.
+    Scan,
+    /// Draws of the chains far from every known mode, in warm-up.
+    Chains,
 }
 
 /// Everything the mode search found.
@@ -42,13 +63,19 @@ pub struct Mode {
 pub struct ModeSearch {
     /// Distinct modes, lowest energy first.
     pub modes: Vec<Mode>,
-    /// Optimiser starts made.
+    /// Scattered starts made.
     pub starts: usize,
     /// Energy-and-gradient evaluations spent.
     pub evaluations: u64,
+    /// The evidence that every mode was found.
+    pub coverage: Coverage,
     /// Plain-words remarks for the report.
     pub notes: Vec<String>,
 }
+
+/// Work budget of the scattered starts, in tape instructions (evaluations × the evaluator's
+/// work per call); the starts stop when it is spent, and the coverage says so.
+pub const START_WORK: f64 = 5e9;
 
 /// Squared Mahalanobis distance (a − b)ᵀ H (a − b).
 pub fn mahalanobis2(a: &[f64], b: &[f64], h: &[f64]) -> f64 {
@@ -128,6 +155,7 @@ pub(super) fn settle(
                 user_energy,
                 hessian: h,
                 hits: 1,
+                found_by: FoundBy::Starts,
                 non_quadratic,
             }));
         }
@@ -142,6 +170,7 @@ pub(super) fn settle(
         user_energy,
         hessian: h,
         hits: 1,
+        found_by: FoundBy::Starts,
         non_quadratic: false,
     }))
 }
@@ -155,9 +184,10 @@ pub fn merge_mode(modes: &mut Vec<Mode>, m: Mode) -> bool {
         if near {
             known.hits += m.hits;
             if m.energy < known.energy {
-                let hits = known.hits;
+                let (hits, found_by) = (known.hits, known.found_by);
                 *known = m;
                 known.hits = hits;
+                known.found_by = found_by;
             }
             return false;
         }
@@ -177,12 +207,19 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
     let mut bad_starts = 0;
     let mut bad_gradients = 0;
     let mut bad_example: Option<(Vec<f64>, f64)> = None;
-    let mut last_new = 0;
     let mut starts = 0;
+    let mut rule_held = false;
+    let work = target.evaluator_work().max(1) as f64;
     for k in 0..opts.max_starts {
-        // Stop early once new starts have long stopped finding new modes.
-        if opts.early_stop && k >= 64 && k - last_new > k / 2 && !modes.is_empty() {
-            break;
+        // Stop once the stopping rule holds (or the work budget is spent).
+        if opts.stop_rule && k >= opts.min_starts && !modes.is_empty() {
+            if StartCounts::from_hits(modes.iter().map(|m| m.hits)).rule_holds() {
+                rule_held = true;
+                break;
+            }
+            if ev.evaluations as f64 * work > START_WORK {
+                break;
+            }
         }
         starts += 1;
         let mut z0 = start_point(k, &target.transforms, &shift);
@@ -222,9 +259,7 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
                     let sd: Vec<f64> = inv_hessian_diag.iter().map(|v| sqrt(*v)).collect();
                     match settle(&mut ev, target, z, f, &sd)? {
                         Ok(mode) => {
-                            if merge_mode(&mut modes, mode) {
-                                last_new = k;
-                            }
+                            merge_mode(&mut modes, mode);
                             break;
                         }
                         Err(lower) if tries < 4 => z0 = lower,
@@ -262,27 +297,174 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
             "{bad_gradients} of {starts} starting points had a finite energy but a non-finite gradient (for example sqrt at 0) and were skipped"
         ));
     }
+    if !opts.stop_rule {
+        // Every requested start was made; the rule is judged on them all the same.
+        rule_held = StartCounts::from_hits(modes.iter().map(|m| m.hits)).rule_holds();
+    }
+    let counts = StartCounts::from_hits(modes.iter().map(|m| m.hits));
     modes.sort_by(|a, b| a.energy.total_cmp(&b.energy));
     let before = modes.len();
-    let mut hops = hop_search(target, &mut ev, &mut modes, opts.max_starts * 4)?;
-    hops += lattice_search(target, &mut ev, &mut modes, opts.max_starts * 8)?;
-    if modes.len() > before {
+    // The outward searches keep the budget they had before the stopping rule (a multiple of
+    // 40 + 40 D starts), so that their cost does not grow with the start budget.
+    let outward = (40 + 40 * d).min(2000);
+    let mut hops = hop_search(target, &mut ev, &mut modes, outward * 4)?;
+    hops += lattice_search(target, &mut ev, &mut modes, outward * 8)?;
+    let found_outward = modes.len() - before;
+    if found_outward > 0 {
         notes.push(format!(
-            "{} of the {} modes were found from known modes, by crossing barriers and by repeating the steps between neighbouring modes ({hops} optimiser runs)",
-            modes.len() - before,
+            "{found_outward} of the {} modes were found from known modes, by crossing barriers and by repeating the steps between neighbouring modes ({hops} optimiser runs)",
             modes.len()
+        ));
+    }
+    let scanned = scan(target, &mut modes)?;
+    let scan_new: usize = scanned.iter().map(|s| s.new_modes).sum();
+    if scan_new > 0 {
+        notes.push(format!(
+            "{scan_new} mode(s) were found only by the dense scan of the searched region"
         ));
     }
     if modes.iter().any(|m| m.non_quadratic) {
         notes.push("some modes are far from Gaussian; their Laplace masses use the measured width instead of the Hessian".to_string());
     }
     modes.sort_by(|a, b| a.energy.total_cmp(&b.energy));
+    let evaluations = ev.evaluations + scanned.iter().map(|s| s.evaluations).sum::<u64>();
+    let coverage = assess(
+        target,
+        &modes,
+        starts,
+        counts,
+        rule_held,
+        found_outward,
+        scanned,
+    );
     Ok(ModeSearch {
         modes,
         starts,
-        evaluations: ev.evaluations,
+        evaluations,
+        coverage,
         notes,
     })
+}
+
+/// Puts the search's evidence together: the estimators, the region, the scan's resolution,
+/// and what could have been missed.
+fn assess(
+    target: &Target,
+    modes: &[Mode],
+    starts: usize,
+    counts: StartCounts,
+    rule_held: bool,
+    found_outward: usize,
+    scan: Vec<super::coverage::ScanSummary>,
+) -> Coverage {
+    let d = target.dim();
+    // Widths in the units of the scan's axes: the user's units, or log units for an unknown
+    // with one bound.
+    let mut narrowest_found = vec![f64::INFINITY; d];
+    for m in modes {
+        let (sx, sz) = (mode_sd(target, m), mode_sd_z(m));
+        for j in 0..d {
+            let one_sided = matches!(
+                target.transforms[j],
+                Transform::Lower(_) | Transform::Upper(_)
+            );
+            let s = if one_sided { sz[j] } else { sx[j] };
+            if s.is_finite() && s > 0.0 && s < narrowest_found[j] {
+                narrowest_found[j] = s;
+            }
+        }
+    }
+    let expected_unseen = counts
+        .expected_modes()
+        .map(|k| (k - counts.distinct as f64).max(0.0));
+    let mut limitations = Vec::new();
+    // The finest grid of the scan: the one near the modes when there are two.
+    let finest = scan.first();
+    match finest {
+        Some(s) => {
+            let coarse: Vec<String> = (0..d)
+                .filter(|&j| narrowest_found[j] < s.narrowest[j])
+                .map(|j| target.names[j].clone())
+                .collect();
+            if !coarse.is_empty() {
+                limitations.push(Limitation {
+                    code: "scan_coarse".into(),
+                    sentence: format!(
+                        "the dense scan's grid is coarser than the narrowest mode found (along {}): a mode as narrow could lie between its points unseen",
+                        coarse.join(", ")
+                    ),
+                });
+            }
+        }
+        None if !rule_held => limitations.push(Limitation {
+            code: "start_budget".into(),
+            sentence: format!(
+                "the {starts} scattered starts were used up before the stopping rule held: about {} more mode(s) may exist (Boender & Rinnooy Kan), and one more start would find a new one with chance {:.1}% (Good–Turing)",
+                expected_unseen.map_or("an unknown number of".to_string(), |u| format!("{u:.1}")),
+                100.0 * counts.new_mode_chance()
+            ),
+        }),
+        None => {}
+    }
+    let ranges = |region: &[Range]| -> String {
+        target
+            .names
+            .iter()
+            .zip(region)
+            .map(|(n, r)| format!("{n} in [{}, {}]", num(r.lower), num(r.upper)))
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
+    let widths = |s: &super::coverage::ScanSummary| -> String {
+        target
+            .names
+            .iter()
+            .zip(&s.narrowest)
+            .zip(&s.scale)
+            .map(|((n, w), scale)| match scale {
+                Spacing::Linear => format!("{} in {n}", num(*w)),
+                Spacing::Log => format!("{:.2}% of {n}'s distance from its bound", 100.0 * w),
+            })
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
+    let rule = if rule_held { "held" } else { "not reached" };
+    let mut summary = match scan.last() {
+        Some(whole) => format!(
+            "{starts} scattered starts (stopping rule {rule}), then a dense scan of {} on a grid of {} points: any mode at least {} wide there would have been found",
+            ranges(&whole.region),
+            whole.points.iter().map(|p| p.to_string()).collect::<Vec<_>>().join(" × "),
+            widths(whole)
+        ),
+        None => format!(
+            "{starts} scattered starts over {} (stopping rule {rule}); a mode whose region of attraction is smaller than about {:.2}% of that region could have been missed",
+            ranges(&start_region(target)),
+            100.0 * 3.0 / counts.converged.max(1) as f64
+        ),
+    };
+    if scan.len() > 1 {
+        summary.push_str(&format!(
+            "; near the modes found ({}) a finer grid resolves modes at least {} wide",
+            ranges(&scan[0].region),
+            widths(&scan[0])
+        ));
+    }
+    Coverage {
+        starts,
+        counts,
+        new_mode_chance: counts.new_mode_chance(),
+        expected_unseen,
+        chao_unseen: counts.chao_unseen(),
+        unreached_share: counts.unreached_share(),
+        rule_held,
+        start_region: start_region(target),
+        found_outward,
+        found_by_chains: 0,
+        scan,
+        narrowest_found,
+        limitations,
+        summary,
+    }
 }
 
 /// Optimises from `z0` (for instance a draw in a region no start reached) and returns the mode

@@ -4,7 +4,7 @@
 //! Owns: [`hop_search`], [`lattice_search`] and their budgets.
 //! Must not: choose starting points or build the approximation.
 
-use super::modes::{mahalanobis2, merge_mode, mode_from, Mode};
+use super::modes::{mahalanobis2, merge_mode, mode_from, FoundBy, Mode};
 use super::optimiser::beyond_edge;
 use crate::common::error::KilnError;
 use crate::common::maths::sqrt;
@@ -18,6 +18,7 @@ pub(super) fn optimise_if_unexplored(
     ev: &mut TargetEval,
     modes: &mut Vec<Mode>,
     start: &[f64],
+    how: FoundBy,
 ) -> Result<usize, KilnError> {
     if modes
         .iter()
@@ -25,7 +26,9 @@ pub(super) fn optimise_if_unexplored(
     {
         return Ok(0);
     }
-    if let Some(found) = mode_from(target, ev, start)? {
+    if let Some(mut found) = mode_from(target, ev, start)? {
+        found.hits = 0;
+        found.found_by = how;
         merge_mode(modes, found);
     }
     Ok(1)
@@ -67,7 +70,7 @@ pub(super) fn hop_search(
                 let Some(start) = cross_barrier(ev, target, &m, &v, sign * sd) else {
                     continue;
                 };
-                runs += optimise_if_unexplored(target, ev, modes, &start)?;
+                runs += optimise_if_unexplored(target, ev, modes, &start, FoundBy::Barrier)?;
             }
         }
     }
@@ -177,7 +180,7 @@ pub(super) fn lattice_search(
                 if beyond_edge(&c, &target.transforms) {
                     continue;
                 }
-                runs += optimise_if_unexplored(target, ev, modes, &c)?;
+                runs += optimise_if_unexplored(target, ev, modes, &c, FoundBy::Lattice)?;
             }
         }
     }

@@ -6,21 +6,27 @@
 use crate::common::maths::ln;
 use crate::model::target::Transform;
 
+/// How many scattered starts the search makes.
 #[derive(Clone, Copy, Debug)]
 pub struct SearchOptions {
-    /// Most starts.
+    /// Most starts (the budget).
     pub max_starts: usize,
-    /// Stop before `max_starts` once the latter half of the starts found no new mode.
-    pub early_stop: bool,
+    /// Fewest starts before the stopping rule may end them.
+    pub min_starts: usize,
+    /// Stop before `max_starts` once the stopping rule of `coverage` holds (false: make every
+    /// start, as when the user asks for a number of starts).
+    pub stop_rule: bool,
     pub seed: u64,
 }
 
 impl SearchOptions {
-    /// Default: 40 + 40 D starts, at most 2000.
+    /// Default: at least 40 + 20 D starts and at most 200 + 100 D (3000 at most), stopping in
+    /// between when the stopping rule holds.
     pub fn default_for(dim: usize, seed: u64) -> SearchOptions {
         SearchOptions {
-            max_starts: (40 + 40 * dim).min(2000),
-            early_stop: true,
+            max_starts: (200 + 100 * dim).min(3000),
+            min_starts: 40 + 20 * dim,
+            stop_rule: true,
             seed,
         }
     }
