@@ -10,7 +10,7 @@ import { str } from './format.js';
 import { parseCsv, columnsToCsv } from './csv.js';
 
 export const SETTING_KEYS = ['seed', 'chains', 'draws', 'warmup', 'method', 'integrator'];
-export const DEFAULT_SETTINGS = { seed: '1', chains: '4', draws: '2000', warmup: '1000', method: 'alternating', integrator: 'nuts' };
+export const DEFAULT_SETTINGS = { seed: '1', chains: '8', draws: '1000', warmup: '500', method: 'alternating', integrator: 'nuts' };
 const SPEC_KEYS = ['title', 'notes', 'variables', 'data', 'energy', 'log_density', 'mixture', 'settings'];
 const KINDS = ['energy', 'log_density', 'mixture'];
 

@@ -8,5 +8,6 @@ pub mod error;
 pub mod format;
 pub mod gaussian;
 pub mod maths;
+pub mod psis;
 pub mod rng;
 pub mod stats;

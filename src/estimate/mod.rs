@@ -19,8 +19,8 @@ pub mod control;
 pub mod crosscheck;
 pub mod importance;
 pub mod log_z;
-pub mod psis;
 pub mod quadrature;
+
 pub mod summary;
 pub mod warnings;
 

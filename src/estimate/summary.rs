@@ -13,6 +13,7 @@ use crate::common::stats::{ess_bulk, rhat, weighted_quantile};
 use crate::model::target::Target;
 use crate::sample::series::{mean_square, Series};
 use crate::sample::{Plan, Record};
+use crate::search::basin_of;
 use crate::search::modes::mahalanobis2;
 use crate::search::FoundBy;
 use serde::Serialize;
@@ -132,6 +133,12 @@ fn weighted_mean_se(values: &[f64], wn: &[f64], mean: f64, series: &Series) -> (
     (sqrt(var / e), e)
 }
 
+/// Most draws whose mode is decided by a local search, per run.
+pub const MAX_BASIN_SEARCHES: usize = 4000;
+/// Draws with less weight than this (relative to the mean weight, 1) keep their most
+/// responsible Laplace component: together they hold a negligible share of the masses.
+pub const MIN_BASIN_WEIGHT: f64 = 0.01;
+
 /// Everything estimated from the sampling records of a frozen plan.
 pub fn estimate(
     target: &Target,
@@ -166,19 +173,36 @@ pub fn estimate(
     let mut beta = Vec::with_capacity(total);
     let mut chain = Vec::with_capacity(total);
     let mut iteration = Vec::with_capacity(total);
+    // A draw belongs to the mode whose region of attraction holds it. Draws well inside the
+    // Laplace component of a mode (squared Mahalanobis distance at most D + 3√(2D), about the
+    // 99.9 % point of a normal mode's) are that mode's; for the others that carry weight, the
+    // local search from the draw decides (`search::basin_of`), at most MAX_BASIN_SEARCHES times.
+    // (Assigning every draw to its most responsible Laplace component instead put a heavy-tailed
+    // mode's far draws into a lighter-tailed neighbour: 40 % coverage of the masses' ±2 SE on
+    // two clusters in 8-D, one of them Student-t.)
+    let inner = d as f64 + 3.0 * crate::common::maths::sqrt(2.0 * d as f64);
     let far = 30.0 + 4.0 * d as f64;
     let mut far_weight = 0.0;
+    let mut ev = target.evaluator();
+    let mut searches = 0usize;
     for (c, r) in records.iter().enumerate() {
         for i in 0..r.beta.len() {
             let z = &r.z[i * d..(i + 1) * d];
             x.extend(target.to_user(z));
             laplace.base.responsibilities(z, &mut resp, &mut scratch);
-            let best = (0..k)
+            let mut best = (0..k)
                 .max_by(|&a, &b| resp[a].total_cmp(&resp[b]))
                 .unwrap_or(0);
             let near = mahalanobis2(z, &plan.modes[best].z, &plan.modes[best].hessian);
-            if near > far {
-                far_weight += wn[mode.len()];
+            let w = wn[mode.len()];
+            if near > inner && w > MIN_BASIN_WEIGHT && searches < MAX_BASIN_SEARCHES {
+                searches += 1;
+                match basin_of(target, &mut ev, z, &plan.modes) {
+                    Some(m) => best = m,
+                    None => far_weight += w,
+                }
+            } else if near > far {
+                far_weight += w;
             }
             mode.push(best);
             beta.push(r.beta[i]);

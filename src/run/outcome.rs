@@ -27,7 +27,7 @@ use crate::search::Coverage;
 use serde::{Deserialize, Serialize};
 
 /// Draws of the importance-sampling cross-check.
-pub const IS_DRAWS: usize = 4000;
+pub const IS_DRAWS: usize = 16000;
 
 /// What `kiln run` reports: the run's identity and settings, the estimates (flattened into
 /// the same JSON object), the cross-checks and the messages.

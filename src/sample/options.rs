@@ -49,9 +49,9 @@ pub struct SamplerOptions {
 impl SamplerOptions {
     pub fn new(seed: u64) -> SamplerOptions {
         SamplerOptions {
-            chains: 4,
-            warmup: 1000,
-            draws: 2000,
+            chains: 8,
+            warmup: 500,
+            draws: 1000,
             method: Method::Alternating,
             integrator: Integrator::Nuts,
             target_accept: 0.8,

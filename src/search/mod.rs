@@ -21,5 +21,7 @@ pub mod starts;
 
 pub use coverage::Coverage;
 pub use laplace::Laplace;
-pub use modes::{find_modes, mahalanobis2, merge_mode, mode_from, FoundBy, Mode, ModeSearch};
+pub use modes::{
+    basin_of, find_modes, mahalanobis2, merge_mode, mode_from, FoundBy, Mode, ModeSearch,
+};
 pub use starts::SearchOptions;

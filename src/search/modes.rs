@@ -396,6 +396,14 @@ fn assess(
                 });
             }
         }
+        None if d > 3 => limitations.push(Limitation {
+            code: "no_scan".into(),
+            sentence: format!(
+                "in {d} unknowns no dense scan is affordable: the search rests on {starts} scattered starts and on searches outward from the modes found, so a mode whose region of attraction is small (under about {:.2}% of the start region) could have been missed{}",
+                100.0 * 3.0 / counts.converged.max(1) as f64,
+                if rule_held { String::new() } else { format!("; the starts were used up before the stopping rule held (about {} more mode(s) expected)", expected_unseen.map_or("an unknown number of".to_string(), |u| format!("{u:.1}"))) }
+            ),
+        }),
         None if !rule_held => limitations.push(Limitation {
             code: "start_budget".into(),
             sentence: format!(
@@ -464,6 +472,23 @@ fn assess(
         narrowest_found,
         limitations,
         summary,
+    }
+}
+
+/// The known mode whose region of attraction holds `z`: the local search from `z` is followed
+/// to its end and matched to the mode it ends at (squared Mahalanobis distance below 9 under
+/// that mode's Hessian); `None` when it ends nowhere known (or does not end). A mode's mass is
+/// the target's mass in its region of attraction, which is what this assigns draws by.
+pub fn basin_of(target: &Target, ev: &mut TargetEval, z: &[f64], modes: &[Mode]) -> Option<usize> {
+    match minimize(ev, z.to_vec(), &target.transforms) {
+        Descent::Converged { z: end, .. } => modes
+            .iter()
+            .enumerate()
+            .map(|(k, m)| (k, mahalanobis2(&end, &m.z, &m.hessian)))
+            .filter(|(_, d2)| *d2 < 9.0)
+            .min_by(|a, b| a.1.total_cmp(&b.1))
+            .map(|(k, _)| k),
+        _ => None,
     }
 }
 

@@ -10,12 +10,17 @@
 //! recommends. With k̂ below 1/2 the weights have a finite variance and the usual standard
 //! error holds; between 1/2 and 0.7 it is still usable for the estimate with care; above 0.7
 //! the estimate and its error bar cannot be trusted.
-//! Must not: draw anything (it reads log weights).
+//! Must not: draw anything (it reads log weights) or know what the weights are of.
 
 use crate::common::maths::{exp, ln, ln_1p, log_sum_exp, sqrt};
 
-/// The k̂ above which an importance-sampling estimate is not judged (Vehtari et al. 2024).
+/// The k̂ above which even a Pareto-smoothed importance-sampling estimate is not to be trusted
+/// (Vehtari et al. 2024).
 pub const KHAT_LIMIT: f64 = 0.7;
+/// The k̂ above which the raw weights' variance is infinite (a generalized Pareto tail of shape
+/// ξ has a finite variance only for ξ < 1/2), so that the usual standard error of a raw
+/// importance-sampling estimate does not hold.
+pub const KHAT_FINITE_VARIANCE: f64 = 0.5;
 
 /// k̂ of the upper tail of the weights exp(`log_w`); `None` with too few finite weights (fewer
 /// than 5 in the tail).
@@ -31,11 +36,13 @@ pub fn pareto_khat(log_w: &[f64]) -> Option<f64> {
     // Exceedances of the tail over the (M+1)-th largest weight, scaled by the largest weight
     // (the shape does not depend on the scale).
     let threshold = exp(lw[m] - top);
-    let mut x: Vec<f64> = lw[..m].iter().map(|l| exp(l - top) - threshold).collect();
-    x.sort_by(|a, b| a.total_cmp(b));
-    if !(x[m - 1] > 0.0) {
+    // Weights equal to round-off (a base that is the target) have no tail to fit: their
+    // spread is rounding noise.
+    if 1.0 - threshold < 1e-9 {
         return Some(0.0);
     }
+    let mut x: Vec<f64> = lw[..m].iter().map(|l| exp(l - top) - threshold).collect();
+    x.sort_by(|a, b| a.total_cmp(b));
     let k = generalized_pareto_shape(&x);
     let n = m as f64;
     // A weakly informative prior: the shape pulled towards 1/2 with the weight of 10 draws.
