@@ -15,6 +15,9 @@
 //! BENCHMARKS.md). `KILN_CALIBRATION_SEEDS=N` and `KILN_CALIBRATION_TARGETS=a,b` change what
 //! runs, for experiments; the assertions need the default 30 seeds.
 
+// Reference values are computed with the platform's maths, independently of the engine's.
+#![allow(clippy::disallowed_methods)]
+
 use kiln::estimate::crosscheck::CheckKind;
 use kiln::estimate::Agreement;
 use kiln::run::{run, Overrides, RunOutcome};
