@@ -47,7 +47,8 @@ fn compile(text: &str, vars: &[String], data: &[(&str, Vec<f64>)]) -> Evaluator 
     // The formulas are constants of this module, never user input; the benchmark tests run them,
     // so these `expect`s cannot fire.
     let prog = crate::formula::syntax::parse("energy", text).expect("benchmark formula parses");
-    let graph = crate::formula::resolve::resolve("energy", text, &prog, vars, &names, table.rows)
+    let inputs = crate::formula::resolve::Inputs::plain(vars, &names, &table);
+    let graph = crate::formula::resolve::resolve("energy", text, &prog, &inputs, &[])
         .expect("benchmark formula checks");
     let tape = Tape::compile(&graph, vars.len(), &table);
     Evaluator::new(Arc::new(tape))

@@ -5,4 +5,5 @@
 //! Must not: search for modes or sample.
 
 pub mod spec;
+pub mod table;
 pub mod target;
