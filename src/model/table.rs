@@ -150,8 +150,17 @@ pub fn read_csv(text: &str, max_cells: usize) -> Result<Vec<(String, Vec<f64>)>,
         if record.iter().all(|f| f.is_empty()) {
             continue;
         }
-        let start = record.position().map_or(0, |p| p.byte() as usize);
-        let line = record.position().map_or(1, |p| p.line() as usize);
+        // Where the record starts (past the line end of the one before, which the reader may
+        // count as part of this record's position after a CR LF), and its 1-based line.
+        let mut start = record.position().map_or(0, |p| p.byte() as usize);
+        while matches!(text.as_bytes().get(start), Some(b'\r' | b'\n')) {
+            start += 1;
+        }
+        let line = text.as_bytes()[..start.min(text.len())]
+            .iter()
+            .filter(|&&b| b == b'\n')
+            .count()
+            + 1;
         if !header_seen {
             header_seen = true;
             for (j, name) in record.iter().enumerate() {
@@ -269,6 +278,12 @@ mod tests {
     #[test]
     fn quoting_line_ends_bom_and_delimiters() {
         let c = read("\u{feff}y,\"group\"\r\n1.5,\"2\"\r\n-3e-1,1\r\n").unwrap();
+        let e = read("a,b\r\n1,2\r\n\r\n3,x\r\n").unwrap_err();
+        assert_eq!(
+            e.message,
+            "data row 2 (line 4), column `b`: `x` is not a number"
+        );
+        assert_eq!(e.location.unwrap().line, 4);
         assert_eq!(c[0], ("y".to_string(), vec![1.5, -0.3]));
         assert_eq!(c[1], ("group".to_string(), vec![2.0, 1.0]));
         let c = read("a;b\n1;2\n\n3;4\n").unwrap();
