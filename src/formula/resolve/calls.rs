@@ -10,7 +10,7 @@ use super::{
     AddedTerm, Arity, Binding, Builtin, Checker, Node, NodeId, Picks, ALL_ROWS, FUNCTIONS,
 };
 use crate::common::error::{nearest, KilnError, Location};
-use crate::common::maths::Binary;
+use crate::common::maths::{Binary, Unary};
 use crate::formula::densities::{self, Whole, DENSITIES, PREFIX};
 use crate::formula::syntax::{parse, Expr, ExprKind, Span};
 use std::collections::HashMap;
@@ -449,6 +449,14 @@ impl<'a> Checker<'a> {
         for c in conditions.iter().rev() {
             let passes = |x: f64| if c.strict { x > 0.0 } else { x >= 0.0 };
             let deps = self.builder.deps[c.node as usize];
+            // An exponential is never negative, and positive wherever it is not 0 by underflow
+            // (where the density's value is its limit): no test needed.
+            if matches!(
+                self.builder.nodes[c.node as usize],
+                Node::Unary(Unary::Exp, _)
+            ) {
+                continue;
+            }
             if deps.var {
                 let op = if c.strict {
                     Binary::WherePos
