@@ -146,10 +146,6 @@ pub fn read_csv(text: &str, max_cells: usize) -> Result<Vec<(String, Vec<f64>)>,
         if !ok {
             break;
         }
-        // A line of nothing but delimiters and spaces is a blank line.
-        if record.iter().all(|f| f.is_empty()) {
-            continue;
-        }
         // Where the record starts (past the line end of the one before, which the reader may
         // count as part of this record's position after a CR LF), and its 1-based line.
         let mut start = record.position().map_or(0, |p| p.byte() as usize);
@@ -161,6 +157,12 @@ pub fn read_csv(text: &str, max_cells: usize) -> Result<Vec<(String, Vec<f64>)>,
             .filter(|&&b| b == b'\n')
             .count()
             + 1;
+        // A line of nothing but delimiters and spaces is a blank line (spreadsheets write them
+        // below the data); an empty quoted field `""` is a cell.
+        let line_end = text[start..].find('\n').map_or(text.len(), |i| start + i);
+        if record.iter().all(|f| f.is_empty()) && !text[start..line_end].contains('"') {
+            continue;
+        }
         if !header_seen {
             header_seen = true;
             for (j, name) in record.iter().enumerate() {
@@ -325,5 +327,9 @@ mod tests {
         assert_eq!(e.kind, ErrorKind::Limit);
         assert!(read("").is_err());
         assert!(read("a,b\n").unwrap_err().message.contains("no rows"));
+        // Lines of delimiters are blank; a quoted empty field is an empty cell.
+        assert_eq!(read("a,b\n1,2\n,\n , \n").unwrap()[0].1, vec![1.0]);
+        let e = read("a\n1\n\"\"\n").unwrap_err();
+        assert!(e.message.contains("the cell is empty"), "{}", e.message);
     }
 }
