@@ -224,6 +224,142 @@ fn gradients_in_every_argument_match_central_differences() {
     assert!(checked > 300);
 }
 
+/// Each density as a likelihood: its first argument a data column, its parameters unknowns
+/// (shifted by constants so that every parameter stays inside its range), summed over rows.
+/// This is the row loop with its row-invariant parts pulled out of the sum: the value equals
+/// the sum of the scalar evaluations, and the gradient matches central differences.
+#[test]
+fn densities_as_likelihoods_over_data_rows_have_exact_gradients() {
+    // (name, data column, parameters as formulas of the unknowns p1 …, the point)
+    let cases: &[(&str, &[f64], &[&str], &[f64])] = &[
+        (
+            "normal",
+            &[0.3, -1.2, 2.5, 0.9],
+            &["p1", "exp(p2)"],
+            &[0.4, -0.3],
+        ),
+        (
+            "student",
+            &[0.3, -1.2, 2.5, 9.0],
+            &["exp(p1)", "p2", "exp(p3)"],
+            &[1.1, 0.2, 0.1],
+        ),
+        (
+            "cauchy",
+            &[0.3, -1.2, 2.5, 40.0],
+            &["p1", "exp(p2)"],
+            &[0.1, 0.5],
+        ),
+        (
+            "laplace",
+            &[0.3, -1.2, 2.5, 0.9],
+            &["p1", "exp(p2)"],
+            &[0.35, 0.2],
+        ),
+        (
+            "logistic",
+            &[0.3, -1.2, 2.5, 0.9],
+            &["p1", "exp(p2)"],
+            &[0.1, -0.4],
+        ),
+        ("exponential", &[0.3, 1.2, 2.5, 0.0], &["exp(p1)"], &[0.3]),
+        (
+            "gamma",
+            &[0.3, 1.2, 2.5, 0.9],
+            &["exp(p1)", "exp(p2)"],
+            &[0.7, -0.1],
+        ),
+        (
+            "invgamma",
+            &[0.3, 1.2, 2.5, 0.9],
+            &["exp(p1)", "exp(p2)"],
+            &[0.7, 0.4],
+        ),
+        (
+            "beta",
+            &[0.3, 0.12, 0.95, 0.5],
+            &["exp(p1)", "exp(p2)"],
+            &[0.2, 0.6],
+        ),
+        (
+            "lognormal",
+            &[0.3, 1.2, 2.5, 0.9],
+            &["p1", "exp(p2)"],
+            &[0.1, -0.2],
+        ),
+        (
+            "vonmises",
+            &[0.3, -1.2, 2.5, 0.9],
+            &["p1", "exp(p2)"],
+            &[0.2, 0.8],
+        ),
+        (
+            "uniform",
+            &[0.3, 1.2, 2.5, 0.9],
+            &["p1 - 2", "p2 + 3"],
+            &[0.5, 0.5],
+        ),
+        ("poisson", &[0.0, 3.0, 1.0, 7.0], &["exp(p1)"], &[0.9]),
+        (
+            "binomial",
+            &[0.0, 3.0, 1.0, 2.0],
+            &["4", "1/(1 + exp(-p1))"],
+            &[0.3],
+        ),
+        (
+            "negbinomial",
+            &[0.0, 3.0, 1.0, 7.0],
+            &["exp(p1)", "exp(p2)"],
+            &[1.0, 0.5],
+        ),
+        (
+            "bernoulli",
+            &[0.0, 1.0, 1.0, 0.0],
+            &["1/(1 + exp(-p1))"],
+            &[0.4],
+        ),
+        ("bernoulli_logodds", &[0.0, 1.0, 1.0, 0.0], &["p1"], &[0.4]),
+    ];
+    for (name, column, params, point) in cases {
+        let vars: Vec<String> = (1..=point.len()).map(|i| format!("p{i}")).collect();
+        let text = format!("sum(logd_{name}(y, {}))", params.join(", "));
+        let mut ev = compile(&text, &vars, &[("y".to_string(), column.to_vec())]);
+        let mut g = vec![0.0; vars.len()];
+        let v = ev.value_grad(point, &mut g);
+        assert!(v.is_finite(), "{text}: {v}");
+        // The same as adding the scalar density row by row.
+        let mut total = 0.0;
+        for y in column.iter() {
+            let t = format!("logd_{name}({y}, {})", params.join(", "));
+            total += compile(&t, &vars, &[]).value(point);
+        }
+        assert!(
+            (v - total).abs() <= 1e-12 * total.abs().max(1.0),
+            "{text}: {v} vs {total}"
+        );
+        for i in 0..vars.len() {
+            let fd = central(&mut ev, point, i)
+                .unwrap_or_else(|| panic!("{text}: differences unstable"));
+            assert!(
+                (g[i] - fd).abs() <= 1e-6 * fd.abs().max(1.0),
+                "{text}: d/dp{} = {} vs {fd}",
+                i + 1,
+                g[i]
+            );
+        }
+        // Outside the support (a parameter pushed out), −∞ through the row loop too.
+        if params.iter().any(|p| p.starts_with("exp(")) {
+            let j = params.iter().position(|p| p.starts_with("exp(")).unwrap();
+            let mut out: Vec<String> = params.iter().map(|p| p.to_string()).collect();
+            out[j] = format!("-{}", out[j]);
+            let text = format!("sum(logd_{name}(y, {}))", out.join(", "));
+            let mut ev = compile(&text, &vars, &[("y".to_string(), column.to_vec())]);
+            assert_eq!(ev.value_grad(point, &mut g), f64::NEG_INFINITY, "{text}");
+            assert!(g.iter().all(|&x| x == 0.0), "{text}: {g:?}");
+        }
+    }
+}
+
 #[test]
 fn outside_the_support_the_log_density_is_minus_infinity_with_a_zero_gradient() {
     let outside: &[(&str, &[f64])] = &[

@@ -608,7 +608,8 @@ impl<'a> Parser<'a> {
             Tok::Sym(c) => {
                 let hint = match c {
                     ')' => "there is nothing inside the parentheses, or a `(` is missing",
-                    '=' => "`=` is only used in `let name = …;`",
+                    '=' => "`=` is only used in `let name = …;` and in a range `k = 1..3`",
+                    '[' | ']' => "`[…]` follows a vector's name to pick an element, as in `mu[2]`; group with round parentheses `(` `)`",
                     _ => "a number, a name, a call or `(` was expected here",
                 };
                 Err(self.err(t.span, format!("unexpected `{c}`")).with_hint(hint))
