@@ -231,7 +231,13 @@ fn gradients_in_every_argument_match_central_differences() {
 #[test]
 fn densities_as_likelihoods_over_data_rows_have_exact_gradients() {
     // (name, data column, parameters as formulas of the unknowns p1 …, the point)
-    let cases: &[(&str, &[f64], &[&str], &[f64])] = &[
+    type Likelihood = (
+        &'static str,
+        &'static [f64],
+        &'static [&'static str],
+        &'static [f64],
+    );
+    let cases: &[Likelihood] = &[
         (
             "normal",
             &[0.3, -1.2, 2.5, 0.9],

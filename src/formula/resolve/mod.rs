@@ -304,6 +304,9 @@ pub(crate) struct Checker<'a> {
     rows: Option<Vec<u32>>,
     /// Data-only values on `rows`, by node.
     data_cache: HashMap<NodeId, Vec<f64>>,
+    /// Bodies resolved so far by ranges and groups of rows (bounded like the nodes, so that
+    /// nested ranges whose terms all coincide cannot run for ever).
+    unrolled: usize,
 }
 
 impl<'a> Checker<'a> {
@@ -319,9 +322,10 @@ impl<'a> Checker<'a> {
         self.scope.keys().map(|s| s.as_str()).collect()
     }
 
-    /// An error if the graph has grown past [`MAX_NODES`].
-    fn budget(&self, span: Span) -> Result<(), KilnError> {
-        if self.builder.nodes.len() > MAX_NODES {
+    /// An error if the graph has grown past [`MAX_NODES`], or as many bodies were unrolled.
+    fn budget(&mut self, span: Span) -> Result<(), KilnError> {
+        self.unrolled += 1;
+        if self.builder.nodes.len() > MAX_NODES || self.unrolled > MAX_NODES {
             return Err(self
                 .err(
                     span,
@@ -472,6 +476,7 @@ pub fn resolve<'a>(
         row_sets: Vec::new(),
         rows: None,
         data_cache: HashMap::new(),
+        unrolled: 0,
     };
     for def in &program.lets {
         if let Some(existing) = c.scope.get(&def.name) {

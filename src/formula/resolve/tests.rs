@@ -229,3 +229,12 @@ fn added_terms_are_densities_of_their_subjects() {
     let e = resolve("energy", "x^2", &prog, &inputs, &[term("normal(0, -2)")]).unwrap_err();
     assert_eq!(e.location.unwrap().source, "prior of `y`");
 }
+
+#[test]
+fn unrolling_is_bounded_even_when_every_term_coincides() {
+    // 2^40 bodies, all the same node: stopped by the count of bodies, not the count of nodes.
+    let open: String = (0..40).map(|i| format!("sum(k{i} = 1..2, ")).collect();
+    let text = format!("{open}x{}", ")".repeat(40));
+    let e = checked(&text).unwrap_err();
+    assert!(e.message.contains("expands to more than"), "{}", e.message);
+}
