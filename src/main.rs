@@ -25,6 +25,7 @@ Options of run and compare (they override the spec's \"settings\"):
   --integrator I      nuts | hmc (default nuts)
   --json              print one JSON object instead of the report
   --draws-csv PATH    (run) write resampled target draws as CSV
+  --data FILE.csv     (check, run) use this CSV file (header row naming the columns) as the data
 
 Exit codes: 0 success, 2 bad input (the message on standard error says where and how to fix it).";
 
@@ -36,6 +37,27 @@ fn read_spec(path: &str) -> Result<kiln::Spec, KilnError> {
     kiln::parse_spec(path, &text)
 }
 
+/// The spec, with its data replaced by the CSV file of `--data` if given.
+fn read_spec_with(path: &str, data: &Option<String>) -> Result<kiln::Spec, KilnError> {
+    let spec = read_spec(path)?;
+    let Some(csv) = data else { return Ok(spec) };
+    let too_big = std::fs::metadata(csv)
+        .map(|m| m.len() > kiln::model::table::MAX_CSV_BYTES as u64)
+        .unwrap_or(false);
+    if too_big {
+        return Err(KilnError::limit(format!(
+            "`{csv}` is larger than {} bytes (64 MiB), the largest data file accepted",
+            kiln::model::table::MAX_CSV_BYTES
+        ))
+        .with_hint("thin or aggregate the data (for example into counts per bin)"));
+    }
+    let text = std::fs::read_to_string(csv).map_err(|e| {
+        KilnError::usage(format!("cannot read `{csv}`: {e}"))
+            .with_hint("check the path and that the file is UTF-8 text")
+    })?;
+    kiln::model::spec::with_data_csv(&spec, &text)
+}
+
 fn to_json<T: serde::Serialize>(v: &T) -> Result<String, KilnError> {
     serde_json::to_string_pretty(v)
         .map_err(|e| KilnError::usage(format!("could not write JSON: {e}")))
@@ -44,6 +66,7 @@ fn to_json<T: serde::Serialize>(v: &T) -> Result<String, KilnError> {
 struct Options {
     json: bool,
     draws_csv: Option<String>,
+    data: Option<String>,
     overrides: run::Overrides,
 }
 
@@ -57,11 +80,16 @@ fn number<T: std::str::FromStr>(flag: &str, v: Option<&String>) -> Result<T, Kil
     })
 }
 
-/// Splits arguments into files and options; `csv` allows --draws-csv.
-fn parse_options(args: &[String], csv: bool) -> Result<(Vec<String>, Options), KilnError> {
+/// Splits arguments into files and options; `csv` allows --draws-csv, `data` allows --data.
+fn parse_options(
+    args: &[String],
+    csv: bool,
+    data: bool,
+) -> Result<(Vec<String>, Options), KilnError> {
     let mut o = Options {
         json: false,
         draws_csv: None,
+        data: None,
         overrides: run::Overrides::default(),
     };
     let mut files = Vec::new();
@@ -105,8 +133,15 @@ fn parse_options(args: &[String], csv: bool) -> Result<(Vec<String>, Options), K
                 })?);
                 i += 1;
             }
+            "--data" if data => {
+                o.data = Some(next.cloned().ok_or_else(|| {
+                    KilnError::usage("--data needs a path").with_hint("--data measurements.csv")
+                })?);
+                i += 1;
+            }
             s if s.starts_with('-') => {
                 let known = [
+                    "--data",
                     "--json",
                     "--seed",
                     "--chains",
@@ -138,12 +173,12 @@ fn dispatch(args: &[String]) -> Result<String, KilnError> {
         "-h" | "--help" | "help" => Ok(USAGE.to_string()),
         "-V" | "--version" => Ok(format!("kiln {}", env!("CARGO_PKG_VERSION"))),
         "check" => {
-            let (files, opts) = parse_options(&args[1..], false)?;
+            let (files, opts) = parse_options(&args[1..], false, true)?;
             if files.len() != 1 {
                 return Err(KilnError::usage("`kiln check` takes exactly one spec file")
                     .with_hint("kiln check SPEC.json [--json]"));
             }
-            let spec = read_spec(&files[0])?;
+            let spec = read_spec_with(&files[0], &opts.data)?;
             let outcome = run::check(&spec)?;
             if opts.json {
                 to_json(&outcome)
@@ -152,12 +187,12 @@ fn dispatch(args: &[String]) -> Result<String, KilnError> {
             }
         }
         "run" => {
-            let (files, opts) = parse_options(&args[1..], true)?;
+            let (files, opts) = parse_options(&args[1..], true, true)?;
             if files.len() != 1 {
                 return Err(KilnError::usage("`kiln run` takes exactly one spec file")
                     .with_hint("kiln run SPEC.json [options]"));
             }
-            let spec = read_spec(&files[0])?;
+            let spec = read_spec_with(&files[0], &opts.data)?;
             let result = run::run(&spec, &opts.overrides)?;
             if let Some(path) = &opts.draws_csv {
                 std::fs::write(path, report::run_draws_csv(&result))
@@ -170,7 +205,7 @@ fn dispatch(args: &[String]) -> Result<String, KilnError> {
             }
         }
         "compare" => {
-            let (files, opts) = parse_options(&args[1..], false)?;
+            let (files, opts) = parse_options(&args[1..], false, false)?;
             if files.len() != 2 {
                 return Err(
                     KilnError::usage("`kiln compare` takes exactly two spec files")

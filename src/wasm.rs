@@ -249,3 +249,29 @@ impl RunSession {
         Ok(crate::report::run_draws_csv(self.done()?))
     }
 }
+
+/// What the page shows of a data table: its column names and number of rows.
+#[derive(Serialize)]
+struct DataShape {
+    names: Vec<String>,
+    rows: usize,
+}
+
+/// Reads CSV data as a spec's `"data"` would be read (the same reader, the same errors):
+/// `{names, rows}`, or the error with its row, line and column.
+#[wasm_bindgen]
+pub fn read_data_csv(text: &str) -> Result<JsValue, JsValue> {
+    let cols = crate::model::table::read_csv(text, crate::model::spec::MAX_DATA_CELLS)
+        .map_err(|e| to_js_error(&e))?;
+    to_js(&DataShape {
+        rows: cols.first().map_or(0, |c| c.1.len()),
+        names: cols.into_iter().map(|c| c.0).collect(),
+    })
+}
+
+/// Every function of the formula language, for the editor's suggestions: `[{name, args,
+/// summary, example, kind}]` (kind: "function", "density" or "form").
+#[wasm_bindgen]
+pub fn formula_functions() -> Result<JsValue, JsValue> {
+    to_js(&crate::formula::catalogue::catalogue())
+}

@@ -794,9 +794,10 @@ fn unexpected_character() {
         .at(2, 4, 1, "\tx × a")
         .hint("multiplication is `*`");
     let f = "x^2 + [x]";
+    // `[` now picks a vector's element; where a value is expected it is still an error.
     check("square_bracket", &energy_spec(X, None, f))
         .bad_input()
-        .error_line("unexpected character `[`")
+        .error_line("unexpected `[`")
         .at(1, 7, 1, f)
         .hint("round parentheses");
 }

@@ -123,5 +123,6 @@ export function renderCheck() {
     colourSwatches(modesNode);
   }
   const warns = (Array.isArray(r.warnings) ? r.warnings : []).concat(r.grid && Array.isArray(r.grid.warnings) ? r.grid.warnings : []);
-  if (warns.length) append(modesNode, warnList(warns.map(function (w) { return { text: w, kind: 'warning' }; })));
+  // The statement of the spec's priors is a note, not a warning.
+  if (warns.length) append(modesNode, warnList(warns.map(function (w) { return { text: w, kind: /^priors from the spec/.test(w) ? 'note' : 'warning' }; })));
 }

@@ -1,14 +1,17 @@
 // The model editor (left pane): the active slot's form shown in the page and every edit
 // written back into it, as typed.
 //
-// Owns: writeFormToDom, wireForm, the unknowns and mixture rows, the data summary, and
+// Owns: writeFormToDom, wireForm, the unknowns rows (name, size or element names, bounds,
+// prior) and mixture rows, the data summary (the engine reads the CSV: `readCsv`), and
 // `changed` (after an edit: save, check, redraw). User text goes into inputs' values and text
 // nodes only.
-// Must not touch: the results pane, the engine (checking.js asks it), runs.
+// Must not touch: the results pane, runs, the engine beyond reading the data for the summary
+// (checking.js asks it to check).
 import { state, activeSlot } from './state.js';
 import { SETTING_KEYS, newComponent } from './spec-form.js';
-import { parseCsv } from './csv.js';
 import { fmtInt } from './format.js';
+import { engine } from './engine-load.js';
+import { wireSuggestions } from './suggest.js';
 import { $, el, clear } from './dom.js';
 import { notice } from './notice.js';
 import { readFileText } from './files.js';
@@ -60,14 +63,16 @@ function renderUnknownRows() {
     function input(key, testid, aria, placeholder) {
       return el('input', {
         type: 'text', value: v[key], 'data-testid': testid, 'aria-label': aria, placeholder: placeholder,
-        spellcheck: 'false', autocapitalize: 'off', inputmode: key === 'name' ? null : 'decimal',
+        spellcheck: 'false', autocapitalize: 'off', inputmode: key === 'lower' || key === 'upper' ? 'decimal' : null,
         oninput: function (ev) { v[key] = ev.target.value; changed(); },
       });
     }
     tb.appendChild(el('tr', null,
       el('td', null, input('name', 'unknown-name', 'Name of unknown ' + (i + 1), 'name')),
+      el('td', null, input('size', 'unknown-size', 'Size of unknown ' + (i + 1) + ': a number of elements, or their names separated by commas; empty for one number', '1')),
       el('td', null, input('lower', 'unknown-lower', 'Lower bound of unknown ' + (i + 1), 'none')),
       el('td', null, input('upper', 'unknown-upper', 'Upper bound of unknown ' + (i + 1), 'none')),
+      el('td', null, input('prior', 'unknown-prior', 'Prior of unknown ' + (i + 1) + ', as in normal(0, 10)', 'none')),
       el('td', null, el('button', {
         type: 'button', class: 'icon', 'data-testid': 'unknown-remove', 'aria-label': 'Remove unknown ' + label, title: 'Remove',
         onclick: function () { f.variables.splice(i, 1); renderUnknownRows(); changed(); focusIn('unknowns-table', Math.min(i, f.variables.length - 1)); },
@@ -106,13 +111,42 @@ function renderMixtureRows() {
   });
 }
 
+// The summary line under the data table, from the engine's reading of the CSV (the same
+// reader as the command line's). Each slot keeps the answer for the text it was given.
+let dataTimer = null;
+let dataToken = 0;
+
+function showDataInfo(node, info) {
+  if (info.error) {
+    node.textContent = 'The data cannot be read: ' + (info.error.message || String(info.error)) + '. The check above shows where.';
+    return;
+  }
+  const d = info.shape;
+  node.textContent = fmtInt(d.rows) + (d.rows === 1 ? ' row' : ' rows') + ' × ' + d.names.length + (d.names.length === 1 ? ' column: ' : ' columns: ') + d.names.join(', ') + '. Read in this browser; nothing is uploaded.';
+}
+
 function renderDataSummary() {
-  const f = activeSlot().form;
+  const slot = activeSlot();
+  const f = slot.form;
   const node = $('data-summary');
   if (!f.dataCsv.trim()) { node.textContent = 'No data. Paste CSV with a header row, or load a file; files are read in this browser and never uploaded.'; return; }
-  const d = parseCsv(f.dataCsv);
-  if (d.errors.length) { node.textContent = 'The data cannot be read yet: see the message above the unknowns.'; return; }
-  node.textContent = fmtInt(d.rows) + (d.rows === 1 ? ' row' : ' rows') + ' × ' + d.names.length + (d.names.length === 1 ? ' column: ' : ' columns: ') + d.names.join(', ') + '. Read in this browser; nothing is uploaded.';
+  const text = f.dataCsv;
+  if (slot.dataInfo && slot.dataInfo.text === text) { showDataInfo(node, slot.dataInfo); return; }
+  node.textContent = 'Reading the data…';
+  clearTimeout(dataTimer);
+  const token = ++dataToken;
+  dataTimer = setTimeout(async function () {
+    let info;
+    try {
+      const eng = await engine();
+      info = { text: text, shape: await eng.readCsv(text) };
+    } catch (e) {
+      if (e && e.kind === 'cancelled') return;
+      info = { text: text, error: e };
+    }
+    slot.dataInfo = info;
+    if (token === dataToken && activeSlot() === slot && slot.form.dataCsv === text) showDataInfo($('data-summary'), info);
+  }, 200);
 }
 
 // After every edit of the active slot: keep it, check it, redraw.
@@ -135,6 +169,7 @@ export function wireForm() {
   $('title-input').addEventListener('input', function (ev) { activeSlot().form.title = ev.target.value; changed(); });
   $('notes-input').addEventListener('input', function (ev) { activeSlot().form.notes = ev.target.value; changed(); });
   $('formula-input').addEventListener('input', function (ev) { activeSlot().form.formula = ev.target.value; changed(); });
+  wireSuggestions($('formula-input'));
   $('data-input').addEventListener('input', function (ev) { activeSlot().form.dataCsv = ev.target.value; changed(); });
   for (const r of document.querySelectorAll('input[name=kind]')) {
     r.addEventListener('change', function (ev) {
@@ -150,7 +185,7 @@ export function wireForm() {
   }
   $('add-unknown').addEventListener('click', function () {
     const f = activeSlot().form;
-    f.variables.push({ name: nextName(f.variables), lower: '', upper: '' });
+    f.variables.push({ name: nextName(f.variables), size: '', lower: '', upper: '', prior: '' });
     renderUnknownRows();
     changed();
     focusIn('unknowns-table', f.variables.length - 1);

@@ -12,6 +12,8 @@
 //                           a Blob URL and never fetch anything (hook for a single-file page).
 //   engine.check(specJson)              -> Promise(check result)        (helper worker)
 //   engine.grid(specJson, g)            -> Promise(Float64Array)        (helper worker)
+//   engine.readCsv(text)                -> Promise({names, rows})       (helper worker)
+//   engine.functions()                  -> Promise([{name, args, summary, example, kind}])
 //   engine.run(specJson, overrides, on) -> {cancel(), done: Promise({result, draws, csv})}
 //     on.onPhase(text), on.onProgress(info)   info = {fraction, drawsDone, drawsTotal,
 //                                         elapsed, remaining, stepKind, progress, settings}
@@ -125,6 +127,14 @@ export function createEngine(options) {
       .then(function (r) { return r.values; });
   }
 
+  function readCsv(text) {
+    return helperCall({ type: 'readCsv', text: text }, false).then(function (r) { return r.result; });
+  }
+
+  function functions() {
+    return helperCall({ type: 'functions' }, false).then(function (r) { return r.result; });
+  }
+
   function run(specJson, overrides, on) {
     on = on || {};
     let chains = overrides && overrides.chains;
@@ -213,5 +223,5 @@ export function createEngine(options) {
     };
   }
 
-  return { check: check, grid: grid, run: run, compare: compare };
+  return { check: check, grid: grid, readCsv: readCsv, functions: functions, run: run, compare: compare };
 }

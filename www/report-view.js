@@ -5,7 +5,6 @@
 // Must not touch: the state (it only reads it), the editor, the plots (plots-view.js).
 import { state, activeSlot, unknownNames } from './state.js';
 import { runIsStale } from './runs.js';
-import { parseCsv } from './csv.js';
 import { isNum } from './numbers.js';
 import { str, sentence, fmtSig, fmtFixed, fmtPM, fmtInt, fmtPct, fmtDuration } from './format.js';
 import { $, el, append, clear, setChildren } from './dom.js';
@@ -296,6 +295,7 @@ function renderPrintModel(slot) {
   } else {
     append(node, el('p', null, el('strong', null, f.kind === 'log_density' ? 'Log density:' : 'Energy:')));
     append(node, el('pre', null, f.formula));
-    if (f.dataCsv.trim()) { const d = parseCsv(f.dataCsv); append(node, el('p', null, el('strong', null, 'Data: '), d.rows + ' rows of ' + d.names.join(', '))); }
+    const d = slot.check && slot.check.result;
+    if (f.dataCsv.trim() && d && d.data_rows) append(node, el('p', null, el('strong', null, 'Data: '), d.data_rows + ' rows of ' + d.data_columns.join(', ')));
   }
 }

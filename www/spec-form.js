@@ -1,13 +1,14 @@
 // A spec (the JSON the engine reads) and the form that edits it, both ways.
 //
 // Owns: the form's shape (emptyForm, newComponent), the run settings' keys and defaults,
-// formToSpec (form + settings -> spec, or local errors rendered like the engine's), specToForm
+// formToSpec (form + settings -> spec, or local errors rendered like the engine's; the data
+// table goes into the spec as CSV text, which the engine reads), specToForm
 // (spec -> form + settings; anything the form cannot hold is kept verbatim in `extra` so that
 // the engine, not the page, judges it) and the sanitising of a stored form.
 // Must not touch: the DOM, the page state, storage or the engine (pure; unit-tested under Node).
 import { isNum, parseNumber } from './numbers.js';
 import { str } from './format.js';
-import { parseCsv, columnsToCsv } from './csv.js';
+import { columnsToCsv } from './csv.js';
 
 export const SETTING_KEYS = ['seed', 'chains', 'draws', 'warmup', 'method', 'integrator'];
 export const DEFAULT_SETTINGS = { seed: '1', chains: '8', draws: '1000', warmup: '500', method: 'alternating', integrator: 'nuts' };
@@ -16,7 +17,7 @@ const KINDS = ['energy', 'log_density', 'mixture'];
 
 /** A form with one unknown `x` and nothing else. */
 export function emptyForm() {
-  return { title: '', notes: '', kind: 'energy', formula: '', variables: [{ name: 'x', lower: '', upper: '' }],
+  return { title: '', notes: '', kind: 'energy', formula: '', variables: [{ name: 'x', size: '', lower: '', upper: '', prior: '' }],
     dataCsv: '', mixture: [], extra: {}, extraSettings: {} };
 }
 
@@ -68,6 +69,10 @@ export function formToSpec(f, settingsText) {
   spec.variables = f.variables.map(function (v, i) {
     const o = Object.assign({}, v.extra || {});
     o.name = String(v.name).trim();
+    // Size: a whole number, or a comma-separated list of element names (the engine checks them).
+    const size = String(v.size == null ? '' : v.size).trim();
+    if (/^\d+$/.test(size)) o.size = Number(size);
+    else if (size !== '') o.elements = size.split(',').map(function (t) { return t.trim(); });
     for (const side of ['lower', 'upper']) {
       const t = String(v[side] == null ? '' : v[side]).trim();
       if (t === '') continue;
@@ -75,6 +80,8 @@ export function formToSpec(f, settingsText) {
       if (n === null) errors.push('error: the ' + side + ' bound `' + t + '` is not a number\n --> unknowns, row ' + (i + 1) + ' (' + (o.name || 'no name') + ')\n');
       else o[side] = n;
     }
+    const prior = String(v.prior == null ? '' : v.prior).trim();
+    if (prior !== '') o.prior = prior;
     return o;
   });
   if (f.kind === 'mixture') {
@@ -95,11 +102,7 @@ export function formToSpec(f, settingsText) {
       return o;
     });
   } else {
-    if (f.dataCsv.trim()) {
-      const d = parseCsv(f.dataCsv);
-      for (const e of d.errors) errors.push(e);
-      if (!d.errors.length && d.columns) spec.data = d.columns;
-    }
+    if (f.dataCsv.trim()) spec.data = f.dataCsv;
     spec[f.kind] = f.formula;
   }
   const ps = parseSettings(settingsText);
@@ -125,8 +128,16 @@ export function specToForm(spec) {
   if (Array.isArray(spec.variables) && spec.variables.every(function (v) { return v && typeof v === 'object' && !Array.isArray(v); })) {
     form.variables = spec.variables.map(function (v) {
       const rest = {};
-      for (const k of Object.keys(v)) if (['name', 'lower', 'upper'].indexOf(k) < 0) rest[k] = v[k];
-      return { name: str(v.name), lower: str(v.lower), upper: str(v.upper), extra: Object.keys(rest).length ? rest : null };
+      const shown = ['name', 'lower', 'upper'];
+      let size = '';
+      if (typeof v.size === 'number' && !('elements' in v)) { size = String(v.size); shown.push('size'); }
+      else if (!('size' in v) && Array.isArray(v.elements) && v.elements.length && v.elements.every(function (e) { return typeof e === 'string' && e.indexOf(',') < 0 && e.trim() === e && e !== ''; })) {
+        size = v.elements.join(', '); shown.push('elements');
+      }
+      let prior = '';
+      if (typeof v.prior === 'string' && v.prior.trim() === v.prior && v.prior !== '') { prior = v.prior; shown.push('prior'); }
+      for (const k of Object.keys(v)) if (shown.indexOf(k) < 0) rest[k] = v[k];
+      return { name: str(v.name), size: size, lower: str(v.lower), upper: str(v.upper), prior: prior, extra: Object.keys(rest).length ? rest : null };
     });
   } else if ('variables' in spec) extra.variables = spec.variables;
   const kinds = KINDS.filter(function (k) { return k in spec; });
@@ -152,7 +163,8 @@ export function specToForm(spec) {
   }
   if ('data' in spec) {
     const d = spec.data;
-    if (d && typeof d === 'object' && !Array.isArray(d) && Object.keys(d).every(function (k) { return Array.isArray(d[k]) && d[k].every(isNum); })) {
+    if (typeof d === 'string' && form.kind !== 'mixture') form.dataCsv = d;
+    else if (d && typeof d === 'object' && !Array.isArray(d) && Object.keys(d).every(function (k) { return Array.isArray(d[k]) && d[k].every(isNum); })) {
       form.dataCsv = columnsToCsv(d);
       if (form.kind === 'mixture') extra.data = d;
     } else extra.data = d;
@@ -180,7 +192,7 @@ export function sanitiseForm(f) {
     kind: KINDS.indexOf(f.kind) >= 0 ? f.kind : 'energy',
     formula: str(f.formula), dataCsv: str(f.dataCsv),
     variables: Array.isArray(f.variables) ? f.variables.filter(function (v) { return v && typeof v === 'object'; }).map(function (v) {
-      return { name: str(v.name), lower: str(v.lower), upper: str(v.upper), extra: v.extra && typeof v.extra === 'object' ? v.extra : null };
+      return { name: str(v.name), size: str(v.size), lower: str(v.lower), upper: str(v.upper), prior: str(v.prior), extra: v.extra && typeof v.extra === 'object' ? v.extra : null };
     }) : base.variables,
     mixture: Array.isArray(f.mixture) ? f.mixture.filter(function (c) { return c && typeof c === 'object'; }).map(function (c) {
       return { weight: str(c.weight), mean: str(c.mean), shape: c.shape === 'sd' ? 'sd' : 'cov', spread: str(c.spread), extra: c.extra && typeof c.extra === 'object' ? c.extra : null };

@@ -10,6 +10,8 @@
 //   {type: 'check', spec}                        check_spec(spec) -> {type: 'checked', result}
 //   {type: 'compare', a, b}                      compare_runs(a, b) (run results as JSON) -> {type: 'compared', result}
 //   {type: 'grid', spec, ix, iy, xmin, xmax, ymin, ymax, nx, ny} -> {type: 'grid', values}
+//   {type: 'readCsv', text}                      read_data_csv(text) -> {type: 'csv', result}
+//   {type: 'functions'}                          formula_functions() -> {type: 'functions', result}
 //   {type: 'session', spec, overrides, owned}   new RunSession -> {type: 'ready', ...state}
 //   {type: 'step'}                               run_step() -> {type: 'records', records}
 //   {type: 'absorb', all}                        absorb(all) -> {type: 'absorbed', progress, ...state}
@@ -88,6 +90,14 @@ async function handle(msg) {
         msg.ymin, msg.ymax, msg.nx, msg.ny);
       const values = v instanceof Float64Array ? v : Float64Array.from(v);
       return { type: 'grid', values: values, transfer: [values.buffer] };
+    }
+    case 'readCsv': {
+      await kilnReady;
+      return { type: 'csv', result: wasm_bindgen.read_data_csv(msg.text) };
+    }
+    case 'functions': {
+      await kilnReady;
+      return { type: 'functions', result: wasm_bindgen.formula_functions() };
     }
     case 'session': {
       await kilnReady;

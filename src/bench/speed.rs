@@ -1,7 +1,9 @@
 //! Engine speed: nanoseconds per energy + gradient of the compiled formula tape against a
 //! hand-written Rust function of the same energy with its analytic gradient, for three energies
 //! of the benchmark (the egg crate; a Gaussian likelihood summed over the 272 Old Faithful
-//! eruption durations; the 8-D rotated product). The same code runs natively (`kiln bench`) and
+//! eruption durations; the 8-D rotated product) and two likelihoods of 1000 data rows written
+//! with built-in densities (a Student-t location-scale likelihood, `logd_student`; a Poisson
+//! log-linear regression, `logd_poisson`). The same code runs natively (`kiln bench`) and
 //! as WebAssembly under Node (`src/wasm_bench.rs`, `scripts/bench-wasm.mjs`); only the clock is
 //! passed in, because `std::time::Instant` does not exist on wasm32-unknown-unknown.
 //! Must not: read files or the clock itself.
@@ -47,7 +49,8 @@ fn compile(text: &str, vars: &[String], data: &[(&str, Vec<f64>)]) -> Evaluator 
     // The formulas are constants of this module, never user input; the benchmark tests run them,
     // so these `expect`s cannot fire.
     let prog = crate::formula::syntax::parse("energy", text).expect("benchmark formula parses");
-    let graph = crate::formula::resolve::resolve("energy", text, &prog, vars, &names, table.rows)
+    let inputs = crate::formula::resolve::Inputs::plain(vars, &names, &table);
+    let graph = crate::formula::resolve::resolve("energy", text, &prog, &inputs, &[])
         .expect("benchmark formula checks");
     let tape = Tape::compile(&graph, vars.len(), &table);
     Evaluator::new(Arc::new(tape))
@@ -181,6 +184,62 @@ fn rotated_8_hand(x: &[f64], g: &mut [f64], h: &[f64]) -> f64 {
     e
 }
 
+/// Degrees of freedom of the Student-t speed row.
+const STUDENT_DF: f64 = 4.0;
+
+/// A Student-t likelihood (df 4) with unknown location and scale over the column `y`, through
+/// the built-in density.
+pub const STUDENT_SUM: &str = "-sum(logd_student(y, 4, mu, sigma))";
+
+fn student_sum_hand(v: &[f64], g: &mut [f64], y: &[f64]) -> f64 {
+    let (mu, sigma) = (v[0], v[1]);
+    let nu = STUDENT_DF;
+    let inv = 1.0 / (nu * sigma * sigma);
+    let half = 0.5 * (nu + 1.0);
+    let (mut l, mut rw, mut tw) = (0.0, 0.0, 0.0);
+    for &yi in y {
+        let r = yi - mu;
+        let t = r * r * inv;
+        l += crate::common::maths::ln_1p(t);
+        let w = 1.0 / (1.0 + t);
+        rw += r * w;
+        tw += t * w;
+    }
+    let n = y.len() as f64;
+    let c = crate::common::maths::lgamma(half)
+        - crate::common::maths::lgamma(0.5 * nu)
+        - 0.5 * ln(nu * crate::common::maths::PI);
+    g[0] = -2.0 * half * inv * rw;
+    g[1] = n / sigma - 2.0 * half * tw / sigma;
+    n * (ln(sigma) - c) + half * l
+}
+
+/// A Poisson regression with a log link: counts `k` against the covariate `x`, through the
+/// built-in density.
+pub const POISSON_SUM: &str = "-sum(logd_poisson(k, exp(a + b*x)))";
+
+/// `data` holds x, then k, then Σ lgamma(k + 1) (the constant of the log mass, computed once).
+fn poisson_sum_hand(v: &[f64], g: &mut [f64], data: &[f64]) -> f64 {
+    let (a, b) = (v[0], v[1]);
+    let n = (data.len() - 1) / 2;
+    let (x, k) = (&data[..n], &data[n..2 * n]);
+    let (mut l, mut da, mut db) = (0.0, 0.0, 0.0);
+    for i in 0..n {
+        let eta = a + b * x[i];
+        let m = exp(eta);
+        l += k[i] * eta - m;
+        let r = k[i] - m;
+        da += r;
+        db += r * x[i];
+    }
+    g[0] = -da;
+    g[1] = -db;
+    -(l - data[2 * n])
+}
+
+/// Rows of the two likelihoods written with built-in densities.
+const DENSITY_ROWS: usize = 1000;
+
 /// The 272 Old Faithful eruption durations of the benchmark's open-dataset target.
 pub fn faithful_eruptions() -> Vec<f64> {
     // FAITHFUL_SPEC is a file compiled into the binary (bench/targets/), not user input, and the
@@ -239,7 +298,75 @@ fn cases() -> Vec<Case> {
         dim: d,
         rows: 0,
     };
-    vec![egg, gauss, rot]
+    // 1000 rows from a Student-t (df 4) around 3 with scale 0.8.
+    let mut data_rng = Stream::new(2, Purpose::Check, 1 << 36);
+    let ys: Vec<f64> = (0..DENSITY_ROWS)
+        .map(|_| {
+            let z = data_rng.normal();
+            let chi2: f64 = (0..4)
+                .map(|_| {
+                    let w = data_rng.normal();
+                    w * w
+                })
+                .sum();
+            3.0 + 0.8 * z / crate::common::maths::sqrt(chi2 / STUDENT_DF)
+        })
+        .collect();
+    let student_points: Vec<Vec<f64>> = points(2, 0.0, 1.0)
+        .into_iter()
+        .map(|p| vec![2.5 + p[0], 0.5 + 0.6 * p[1]])
+        .collect();
+    let student = Case {
+        name: "Student-t likelihood via logd_student, 1000 rows (2-D)",
+        tape: compile(STUDENT_SUM, &ms, &[("y", ys.clone())]),
+        hand: student_sum_hand,
+        rows: ys.len(),
+        data: ys,
+        points: student_points,
+        dim: 2,
+    };
+    // 1000 counts of a Poisson regression, rate exp(0.3 + 0.9 x), x in [0, 2].
+    let xs: Vec<f64> = (0..DENSITY_ROWS)
+        .map(|_| 2.0 * data_rng.uniform())
+        .collect();
+    let ks: Vec<f64> = xs
+        .iter()
+        .map(|&x| {
+            // Inversion of the Poisson distribution function.
+            let rate = exp(0.3 + 0.9 * x);
+            let u = data_rng.uniform();
+            let (mut k, mut p) = (0.0, exp(-rate));
+            let mut cdf = p;
+            while u > cdf && k < 1000.0 {
+                k += 1.0;
+                p *= rate / k;
+                cdf += p;
+            }
+            k
+        })
+        .collect();
+    let constant: f64 = ks
+        .iter()
+        .map(|&k| crate::common::maths::lgamma(k + 1.0))
+        .sum();
+    let mut poisson_data = xs.clone();
+    poisson_data.extend(&ks);
+    poisson_data.push(constant);
+    let ab: Vec<String> = vec!["a".into(), "b".into()];
+    let poisson_points: Vec<Vec<f64>> = points(2, 0.0, 1.0)
+        .into_iter()
+        .map(|p| vec![0.1 + 0.4 * p[0], 0.7 + 0.4 * p[1]])
+        .collect();
+    let poisson = Case {
+        name: "Poisson regression via logd_poisson, 1000 rows (2-D)",
+        tape: compile(POISSON_SUM, &ab, &[("x", xs), ("k", ks)]),
+        hand: poisson_sum_hand,
+        rows: DENSITY_ROWS,
+        data: poisson_data,
+        points: poisson_points,
+        dim: 2,
+    };
+    vec![egg, gauss, rot, student, poisson]
 }
 
 /// Times `f` over the points: the best of 5 repetitions of at least `min_ms` each, in ns per call.

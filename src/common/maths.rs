@@ -137,7 +137,82 @@ pub fn digamma(x: f64) -> f64 {
     acc + ln(x) - 0.5 * inv - series
 }
 
-/// The one-argument functions of the formula language.
+/// The modified Bessel functions I0 and I1 at `x ≥ 0`, exponentially scaled: returns
+/// (log(I0(x)) − x, I1(x)/I0(x)). Below 20 by their power series (all terms positive), above by
+/// the asymptotic expansion for large arguments, each summed until a term no longer changes the
+/// sum (M. Abramowitz and I. A. Stegun, 1964, Handbook of Mathematical Functions, eqs. 9.6.10
+/// and 9.7.1). NaN for negative or NaN `x`.
+pub fn bessel_i0_i1_scaled(x: f64) -> (f64, f64) {
+    if !(x >= 0.0) {
+        return (f64::NAN, f64::NAN);
+    }
+    if x == f64::INFINITY {
+        return (f64::NEG_INFINITY, 1.0);
+    }
+    if x <= 20.0 {
+        // I0 = Σ (x²/4)^k / (k!)², I1 = (x/2) Σ (x²/4)^k / (k! (k+1)!).
+        let q = 0.25 * x * x;
+        let (mut t0, mut s0) = (1.0, 1.0);
+        let (mut t1, mut s1) = (1.0, 1.0);
+        for k in 1..200 {
+            let kf = k as f64;
+            t0 *= q / (kf * kf);
+            t1 *= q / (kf * (kf + 1.0));
+            let (n0, n1) = (s0 + t0, s1 + t1);
+            if n0 == s0 && n1 == s1 {
+                break;
+            }
+            s0 = n0;
+            s1 = n1;
+        }
+        return (ln(s0) - x, 0.5 * x * s1 / s0);
+    }
+    // I_ν(x) ~ e^x / √(2πx) · Σ c_k, c_0 = 1, c_k = c_{k−1} ((2k−1)² − 4ν²) / (8kx).
+    let (mut c0, mut s0) = (1.0, 1.0);
+    let (mut c1, mut s1) = (1.0, 1.0);
+    for k in 1..60 {
+        let kf = k as f64;
+        let odd = (2.0 * kf - 1.0) * (2.0 * kf - 1.0);
+        let n0 = c0 * odd / (8.0 * kf * x);
+        let n1 = c1 * (odd - 4.0) / (8.0 * kf * x);
+        // Stop where the (divergent) series' terms stop falling.
+        if n0.abs() >= c0.abs() {
+            break;
+        }
+        c0 = n0;
+        c1 = n1;
+        let (a, b) = (s0 + c0, s1 + c1);
+        if a == s0 && b == s1 {
+            break;
+        }
+        s0 = a;
+        s1 = b;
+    }
+    (ln(s0) - 0.5 * ln(2.0 * PI * x), s1 / s0)
+}
+
+/// x · log(y), zero where x is zero (and y is not NaN), as the limit gives it.
+#[inline]
+pub fn xlogy(x: f64, y: f64) -> f64 {
+    if x == 0.0 && !y.is_nan() {
+        0.0
+    } else {
+        x * ln(y)
+    }
+}
+
+/// x · log(1 + y), zero where x is zero (and y is not NaN).
+#[inline]
+pub fn xlog1py(x: f64, y: f64) -> f64 {
+    if x == 0.0 && !y.is_nan() {
+        0.0
+    } else {
+        x * ln_1p(y)
+    }
+}
+
+/// The one-argument functions of the formula language. `Softplus` and `LogI0e` are used by the
+/// built-in densities only (the language has no name for them).
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
 pub enum Unary {
     Neg,
@@ -158,6 +233,10 @@ pub enum Unary {
     Tanh,
     Erf,
     Lgamma,
+    /// log(1 + e^x).
+    Softplus,
+    /// log(I0(x)) − x, the log of the exponentially scaled modified Bessel function I0.
+    LogI0e,
 }
 
 /// The two-argument operations of the formula language (variadic calls fold onto these).
@@ -172,6 +251,14 @@ pub enum Binary {
     Min,
     Max,
     LogAddExp,
+    /// x · log(y), zero where x is zero.
+    XLogY,
+    /// x · log(1 + y), zero where x is zero.
+    XLog1pY,
+    /// `where_pos(c, v)`: v where c > 0, else −∞ (outside the support of a density).
+    WherePos,
+    /// `where_nonneg(c, v)`: v where c ≥ 0, else −∞.
+    WhereNonNeg,
 }
 
 impl Unary {
@@ -196,6 +283,8 @@ impl Unary {
             Unary::Tanh => libm::tanh(a),
             Unary::Erf => libm::erf(a),
             Unary::Lgamma => lgamma(a),
+            Unary::Softplus => softplus(a),
+            Unary::LogI0e => bessel_i0_i1_scaled(a).0,
         }
     }
 
@@ -229,6 +318,8 @@ impl Unary {
             Unary::Tanh => 1.0 - v * v,
             Unary::Erf => std::f64::consts::FRAC_2_SQRT_PI * exp(-a * a),
             Unary::Lgamma => digamma(a),
+            Unary::Softplus => logistic(a),
+            Unary::LogI0e => bessel_i0_i1_scaled(a).1 - 1.0,
         }
     }
 }
@@ -258,6 +349,22 @@ impl Binary {
                 }
             }
             Binary::LogAddExp => log_add_exp(a, b),
+            Binary::XLogY => xlogy(a, b),
+            Binary::XLog1pY => xlog1py(a, b),
+            Binary::WherePos => {
+                if a > 0.0 {
+                    b
+                } else {
+                    f64::NEG_INFINITY
+                }
+            }
+            Binary::WhereNonNeg => {
+                if a >= 0.0 {
+                    b
+                } else {
+                    f64::NEG_INFINITY
+                }
+            }
         }
     }
 
@@ -300,6 +407,11 @@ impl Binary {
                     (exp(a - v), exp(b - v))
                 }
             }
+            Binary::XLogY => (ln(b), if a == 0.0 { 0.0 } else { a / b }),
+            Binary::XLog1pY => (ln_1p(b), if a == 0.0 { 0.0 } else { a / (1.0 + b) }),
+            // A support test passes the value's slope on where it holds, nothing elsewhere.
+            Binary::WherePos => (0.0, if a > 0.0 { 1.0 } else { 0.0 }),
+            Binary::WhereNonNeg => (0.0, if a >= 0.0 { 1.0 } else { 0.0 }),
         }
     }
 }
@@ -321,6 +433,34 @@ mod tests {
                 "{x}"
             );
         }
+    }
+
+    #[test]
+    fn bessel_functions_meet_their_identities() {
+        // I0(0) = 1, I1(0) = 0; the Wronskian-type recurrence I0'(x) = I1(x) checked by central
+        // differences on either side of the switch between series and expansion.
+        assert_eq!(bessel_i0_i1_scaled(0.0), (0.0, 0.0));
+        for &x in &[0.3f64, 2.0, 7.5, 19.9, 20.1, 35.0, 300.0, 1e5] {
+            let h = 1e-5 * x.max(1.0);
+            let f = |t: f64| bessel_i0_i1_scaled(t).0 + t;
+            let fd = (f(x + h) - f(x - h)) / (2.0 * h);
+            let ratio = bessel_i0_i1_scaled(x).1;
+            assert!(
+                (fd - ratio).abs() < 1e-7 * ratio.max(1e-3),
+                "{x}: {fd} vs {ratio}"
+            );
+        }
+        // The two methods meet at 20.
+        let a = bessel_i0_i1_scaled(20.0);
+        let b = bessel_i0_i1_scaled(20.0 + 1e-12);
+        assert!(
+            (a.0 - b.0).abs() < 1e-13 && (a.1 - b.1).abs() < 1e-13,
+            "{a:?} {b:?}"
+        );
+        assert!(bessel_i0_i1_scaled(-1.0).0.is_nan());
+        assert_eq!(xlogy(0.0, 0.0), 0.0);
+        assert_eq!(xlog1py(0.0, -1.0), 0.0);
+        assert!(xlogy(1.0, 0.0) == f64::NEG_INFINITY);
     }
 
     #[test]

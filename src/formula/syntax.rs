@@ -12,8 +12,13 @@
 //! term     := unary (("*" | "/") unary)*
 //! unary    := ("-" | "+") unary | power
 //! power    := primary ("^" unary)?
-//! primary  := NUMBER | NAME | NAME "(" [expr ("," expr)*] ")" | "(" expr ")"
+//! primary  := NUMBER | NAME | NAME "[" expr "]" | NAME "(" [arg ("," arg)*] ")" | "(" expr ")"
+//! arg      := NAME "=" expr ".." expr      (a range; only as the first argument)
+//!           | expr
 //! ```
+//! `name[i]` picks element `i` (1-based) of a vector unknown; `sum(k = 1..K, body)` and
+//! `logsumexp(k = 1..K, body)` run `k` over a range of whole numbers (both ends included);
+//! `resolve` decides where each may stand.
 //! `#` starts a comment that runs to the end of the line; newlines are whitespace.
 
 use crate::common::error::{ErrorKind, KilnError, Location};
@@ -64,6 +69,19 @@ pub enum ExprKind {
         name_span: Span,
         args: Vec<Expr>,
     },
+    /// `name[index]`: an element of a vector unknown.
+    Index {
+        name: String,
+        name_span: Span,
+        index: Box<Expr>,
+    },
+    /// `var = from..to`: a range of whole numbers, as the first argument of a call.
+    Range {
+        var: String,
+        var_span: Span,
+        from: Box<Expr>,
+        to: Box<Expr>,
+    },
 }
 
 #[derive(Clone, Debug, PartialEq)]
@@ -94,6 +112,8 @@ enum Tok {
     Name(String),
     Let,
     Sym(char),
+    /// `..`
+    DotDot,
     End,
 }
 
@@ -115,6 +135,7 @@ fn describe(tok: &Tok) -> String {
         Tok::Name(n) => format!("the name `{n}`"),
         Tok::Let => "`let`".into(),
         Tok::Sym(c) => format!("`{c}`"),
+        Tok::DotDot => "`..`".into(),
         Tok::End => "the end of the formula".into(),
     }
 }
@@ -138,7 +159,7 @@ fn lex(source: &str, text: &str) -> Result<Vec<Token>, KilnError> {
             while i < bytes.len() && bytes[i].is_ascii_digit() {
                 i += 1;
             }
-            if i < bytes.len() && bytes[i] == b'.' {
+            if i < bytes.len() && bytes[i] == b'.' && bytes.get(i + 1) != Some(&b'.') {
                 i += 1;
                 while i < bytes.len() && bytes[i].is_ascii_digit() {
                     i += 1;
@@ -162,9 +183,12 @@ fn lex(source: &str, text: &str) -> Result<Vec<Token>, KilnError> {
             }
             // A number runs into letters, digits or a second point: `1.2.3`, `2x`, `1e`.
             let mut end = i;
-            while end < bytes.len()
-                && (bytes[end].is_ascii_alphanumeric() || bytes[end] == b'_' || bytes[end] == b'.')
-            {
+            while end < bytes.len() {
+                let b = bytes[end];
+                let dot_dot = b == b'.' && bytes.get(end + 1) == Some(&b'.');
+                if dot_dot || !(b.is_ascii_alphanumeric() || b == b'_' || b == b'.') {
+                    break;
+                }
                 end += 1;
             }
             let span = Span { start, end };
@@ -222,7 +246,16 @@ fn lex(source: &str, text: &str) -> Result<Vec<Token>, KilnError> {
                 tok,
                 span: Span { start, end: i },
             });
-        } else if b"+-*/^(),;=".contains(&c) {
+        } else if c == b'.' && bytes.get(i + 1) == Some(&b'.') {
+            out.push(Token {
+                tok: Tok::DotDot,
+                span: Span {
+                    start: i,
+                    end: i + 2,
+                },
+            });
+            i += 2;
+        } else if b"+-*/^(),;=[]".contains(&c) {
             out.push(Token {
                 tok: Tok::Sym(c as char),
                 span: Span {
@@ -239,13 +272,14 @@ fn lex(source: &str, text: &str) -> Result<Vec<Token>, KilnError> {
             };
             let hint = match ch {
                 '*' | '×' => "multiplication is `*`".to_string(),
-                '[' | ']' | '{' | '}' => "group with round parentheses `(` `)`".to_string(),
+                '{' | '}' => "group with round parentheses `(` `)`".to_string(),
                 '!' | '&' | '|' | '<' | '>' | '?' => {
                     "the formula language has no comparisons or logic; use min, max or abs"
                         .to_string()
                 }
                 '−' => "use the ASCII minus sign `-`".to_string(),
-                _ => "allowed are numbers, names, + - * / ^ ( ) , ; = and # comments".to_string(),
+                _ => "allowed are numbers, names, + - * / ^ ( ) [ ] , ; = .. and # comments"
+                    .to_string(),
             };
             return Err(
                 error_at(source, text, span, format!("unexpected character `{ch}`"))
@@ -490,6 +524,25 @@ impl<'a> Parser<'a> {
         match t.tok {
             Tok::Number(v) => self.node(ExprKind::Number(v), t.span, 1),
             Tok::Name(name) => {
+                if self.is_sym('[') {
+                    self.enter()?;
+                    self.bump();
+                    let index = self.expr()?;
+                    if !self.is_sym(']') {
+                        let u = self.peek().clone();
+                        return Err(self
+                            .err(u.span, format!("expected `]` to close the index of `{name}`, found {}", describe(&u.tok)))
+                            .with_hint(format!("write `{name}[k]` with one whole-number index")));
+                    }
+                    let close = self.bump().span;
+                    self.nesting -= 1;
+                    let depth = 1 + index.depth;
+                    return self.node(
+                        ExprKind::Index { name, name_span: t.span, index: Box::new(index) },
+                        t.span.to(close),
+                        depth,
+                    );
+                }
                 if !self.is_sym('(') {
                     return self.node(ExprKind::Name(name), t.span, 1);
                 }
@@ -498,7 +551,11 @@ impl<'a> Parser<'a> {
                 let mut args = Vec::new();
                 if !self.is_sym(')') {
                     loop {
-                        args.push(self.expr()?);
+                        if args.is_empty() && self.range_ahead() {
+                            args.push(self.range()?);
+                        } else {
+                            args.push(self.expr()?);
+                        }
                         if self.is_sym(',') {
                             self.bump();
                             continue;
@@ -545,15 +602,63 @@ impl<'a> Parser<'a> {
             Tok::End => Err(self
                 .err(t.span, "the formula ends where a value was expected")
                 .with_hint("complete the expression")),
+            Tok::DotDot => Err(self
+                .err(t.span, "unexpected `..`")
+                .with_hint("`..` only stands in a range, as in `sum(k = 1..3, mu[k])`")),
             Tok::Sym(c) => {
                 let hint = match c {
                     ')' => "there is nothing inside the parentheses, or a `(` is missing",
-                    '=' => "`=` is only used in `let name = …;`",
+                    '=' => "`=` is only used in `let name = …;` and in a range `k = 1..3`",
+                    '[' | ']' => "`[…]` follows a vector's name to pick an element, as in `mu[2]`; group with round parentheses `(` `)`",
                     _ => "a number, a name, a call or `(` was expected here",
                 };
                 Err(self.err(t.span, format!("unexpected `{c}`")).with_hint(hint))
             }
         }
+    }
+
+    /// Whether a range `k = a..b` starts here (a name followed by `=`).
+    fn range_ahead(&self) -> bool {
+        matches!(self.peek().tok, Tok::Name(_))
+            && self.toks.get(self.pos + 1).map(|t| &t.tok) == Some(&Tok::Sym('='))
+    }
+
+    /// `k = from..to`.
+    fn range(&mut self) -> Result<Expr, KilnError> {
+        let t = self.bump();
+        let Tok::Name(var) = t.tok else {
+            return Err(self.err(t.span, "expected a name"));
+        };
+        self.bump();
+        let from = self.expr()?;
+        if self.peek().tok != Tok::DotDot {
+            let u = self.peek().clone();
+            return Err(self
+                .err(
+                    u.span,
+                    format!(
+                        "expected `..` in the range of `{var}`, found {}",
+                        describe(&u.tok)
+                    ),
+                )
+                .with_hint(format!(
+                    "write the range as `{var} = 1..3` (both ends included)"
+                )));
+        }
+        self.bump();
+        let to = self.expr()?;
+        let span = t.span.to(to.span);
+        let depth = 1 + from.depth.max(to.depth);
+        self.node(
+            ExprKind::Range {
+                var,
+                var_span: t.span,
+                from: Box::new(from),
+                to: Box::new(to),
+            },
+            span,
+            depth,
+        )
     }
 
     fn column_of(&self, span: Span) -> usize {
@@ -609,6 +714,10 @@ mod tests {
                     args.iter().map(show).collect::<Vec<_>>().join(",")
                 )
             }
+            ExprKind::Index { name, index, .. } => format!("{name}[{}]", show(index)),
+            ExprKind::Range { var, from, to, .. } => {
+                format!("{var}={}..{}", show(from), show(to))
+            }
         }
     }
     fn p(text: &str) -> String {
@@ -626,6 +735,20 @@ mod tests {
         assert_eq!(p("1e-3 * .5 + 2.0"), "((0.001*0.5)+2)");
         assert_eq!(p("f(a, b + 1)"), "f(a,(b+1))");
         assert_eq!(p("# comment\n x # more\n + 1"), "(x+1)");
+        assert_eq!(p("mu[g] + mu[k+1]"), "(mu[g]+mu[(k+1)])");
+        assert_eq!(p("sum(k = 1..3, mu[k]^2)"), "sum(k=1..3,(mu[k]^2))");
+        assert_eq!(p("logsumexp(j=1..K, w[j])"), "logsumexp(j=1..K,w[j])");
+        assert_eq!(p("1.5 + .5"), "(1.5+0.5)");
+    }
+
+    #[test]
+    fn ranges_and_indexes_report_their_faults() {
+        let e = parse("energy", "sum(k = 1, 3)").unwrap_err();
+        assert!(e.message.contains("expected `..`"), "{}", e.message);
+        let e = parse("energy", "mu[1").unwrap_err();
+        assert!(e.message.contains("expected `]`"), "{}", e.message);
+        let e = parse("energy", "1 .. 2").unwrap_err();
+        assert!(e.message.contains("`..`"), "{}", e.message);
     }
 
     #[test]

@@ -2,14 +2,19 @@
 //!
 //! Owns: the one input format of Kiln (command line, page and share links all use it), its
 //! shape (unknown keys are errors listing the allowed ones), and every check that needs no
-//! formula parsing: names, bounds, data columns, mixture components, settings, size limits.
+//! formula parsing: names, bounds, vector unknowns (a `"size"` or a list of `"elements"`,
+//! expanded here into one unknown per element, `mu[1]` or `mu[north]`, so that every later
+//! stage sees named scalar unknowns), priors as written, data columns (as JSON arrays, or as
+//! CSV text read by `table`), mixture components, settings, size limits.
 //! Must not: parse formulas (that is `syntax`) or build densities (that is `target`).
 
 use crate::common::error::{nearest, ErrorKind, KilnError, Location};
-use crate::formula::resolve::{is_identifier, reserved_names};
+use crate::formula::resolve::{is_identifier, reserved_names, Vector};
 use serde::de::{self, MapAccess, Visitor};
 use serde::{Deserialize, Deserializer, Serialize, Serializer};
 use std::fmt;
+
+use super::parts::{finite, validate_mixture, validate_settings, vector_elements};
 
 /// Most unknowns a spec may have.
 pub const MAX_DIMENSION: usize = 64;
@@ -52,7 +57,7 @@ const SPEC_KEYS: &[&str] = &[
     "mixture",
     "settings",
 ];
-const VARIABLE_KEYS: &[&str] = &["name", "lower", "upper"];
+const VARIABLE_KEYS: &[&str] = &["name", "size", "elements", "lower", "upper", "prior"];
 const COMPONENT_KEYS: &[&str] = &["weight", "mean", "cov", "sd"];
 const SETTINGS_KEYS: &[&str] = &[
     "seed",
@@ -65,14 +70,24 @@ const SETTINGS_KEYS: &[&str] = &[
     "target_accept",
 ];
 
-#[derive(Clone, Debug, Deserialize, Serialize, PartialEq)]
+#[derive(Clone, Debug, Default, Deserialize, Serialize, PartialEq)]
 #[serde(deny_unknown_fields)]
 pub struct RawVariable {
     pub name: String,
+    /// A vector of this many unknowns, `name[1]` … `name[size]`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub size: Option<usize>,
+    /// A vector with these element names, `name[first]` …; formulas still index it 1, 2, ….
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub elements: Option<Vec<String>>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub lower: Option<f64>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub upper: Option<f64>,
+    /// A built-in density of the unknown (of each element), its first argument left out:
+    /// `"normal(0, 10)"`; added to the log density.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub prior: Option<String>,
 }
 
 #[derive(Clone, Debug, Deserialize, Serialize, PartialEq)]
@@ -109,18 +124,32 @@ pub struct Settings {
     pub target_accept: Option<f64>,
 }
 
-/// Data columns in the order written.
-#[derive(Clone, Debug, Default, PartialEq)]
-pub struct Columns(pub Vec<(String, Vec<f64>)>);
+/// Data as written: columns in the order written, or CSV text with a header row.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Columns {
+    Arrays(Vec<(String, Vec<f64>)>),
+    Csv(String),
+}
+
+impl Default for Columns {
+    fn default() -> Columns {
+        Columns::Arrays(Vec::new())
+    }
+}
 
 impl Serialize for Columns {
     fn serialize<S: Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
         use serde::ser::SerializeMap;
-        let mut m = s.serialize_map(Some(self.0.len()))?;
-        for (k, v) in &self.0 {
-            m.serialize_entry(k, v)?;
+        match self {
+            Columns::Csv(t) => s.serialize_str(t),
+            Columns::Arrays(cols) => {
+                let mut m = s.serialize_map(Some(cols.len()))?;
+                for (k, v) in cols {
+                    m.serialize_entry(k, v)?;
+                }
+                m.end()
+            }
         }
-        m.end()
     }
 }
 
@@ -130,7 +159,10 @@ impl<'de> Deserialize<'de> for Columns {
         impl<'de> Visitor<'de> for V {
             type Value = Columns;
             fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-                f.write_str("an object mapping column names to arrays of numbers")
+                f.write_str("an object mapping column names to arrays of numbers, or CSV text")
+            }
+            fn visit_str<E: de::Error>(self, v: &str) -> Result<Columns, E> {
+                Ok(Columns::Csv(v.to_string()))
             }
             fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> Result<Columns, A::Error> {
                 let mut out: Vec<(String, Vec<f64>)> = Vec::new();
@@ -143,10 +175,10 @@ impl<'de> Deserialize<'de> for Columns {
                     let values: Vec<f64> = map.next_value()?;
                     out.push((key, values));
                 }
-                Ok(Columns(out))
+                Ok(Columns::Arrays(out))
             }
         }
-        d.deserialize_map(V)
+        d.deserialize_any(V)
     }
 }
 
@@ -157,10 +189,13 @@ pub struct Bounds {
     pub upper: Option<f64>,
 }
 
+/// One scalar unknown (a vector's element is one too, named `mu[2]` or `mu[north]`).
 #[derive(Clone, Debug, PartialEq)]
 pub struct Variable {
     pub name: String,
     pub bounds: Bounds,
+    /// The prior as written in the spec (the vector's, for an element).
+    pub prior: Option<String>,
 }
 
 /// One Gaussian component of a mixture target.
@@ -197,6 +232,8 @@ pub struct Spec {
     pub title: String,
     pub notes: String,
     pub variables: Vec<Variable>,
+    /// The vector unknowns: which of `variables` are their elements.
+    pub vectors: Vec<Vector>,
     pub data: Vec<(String, Vec<f64>)>,
     pub data_rows: usize,
     pub model: Model,
@@ -216,7 +253,7 @@ impl Spec {
 
 fn allowed_keys_for(message: &str) -> &'static [&'static str] {
     // serde lists the expected fields; pick the matching key set to suggest from.
-    if message.contains("`name`") && message.contains("`lower`") {
+    if message.contains("`name`") && message.contains("`lower`") && message.contains("`prior`") {
         VARIABLE_KEYS
     } else if message.contains("`weight`") {
         COMPONENT_KEYS
@@ -348,15 +385,6 @@ fn check_name(kind: &str, name: &str) -> Result<(), KilnError> {
     Ok(())
 }
 
-fn finite(what: &str, v: f64) -> Result<f64, KilnError> {
-    if v.is_finite() {
-        Ok(v)
-    } else {
-        Err(KilnError::spec(format!("{what} is not a finite number"))
-            .with_hint("use a finite number"))
-    }
-}
-
 /// Checks a spec as written and turns it into a [`Spec`].
 pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
     let given: Vec<&str> = [
@@ -384,7 +412,11 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
     }
 
     // Data columns.
-    let data = raw.data.clone().map(|c| c.0).unwrap_or_default();
+    let data = match raw.data.clone() {
+        None => Vec::new(),
+        Some(Columns::Arrays(c)) => c,
+        Some(Columns::Csv(text)) => crate::model::table::read_csv(&text, MAX_DATA_CELLS)?,
+    };
     let mut data_rows = 0;
     let mut cells = 0usize;
     for (i, (name, col)) in data.iter().enumerate() {
@@ -426,6 +458,7 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
 
     // Unknowns.
     let raw_vars = raw.variables.clone().unwrap_or_default();
+    let mut vectors: Vec<Vector> = Vec::new();
     let variables: Vec<Variable> = match &model {
         Model::Mixture(comps) => {
             if !data.is_empty() {
@@ -441,6 +474,7 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
                             lower: None,
                             upper: None,
                         },
+                        prior: None,
                     })
                     .collect()
             } else {
@@ -452,6 +486,16 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
                     .with_hint(
                         "name one variable per mean coordinate, or leave \"variables\" out",
                     ));
+                }
+                if let Some(v) = raw_vars
+                    .iter()
+                    .find(|v| v.size.is_some() || v.elements.is_some() || v.prior.is_some())
+                {
+                    return Err(KilnError::spec(format!(
+                        "variable `{}` has a size, elements or a prior, but a mixture target takes none",
+                        v.name
+                    ))
+                    .with_hint("write the model as a \"log_density\" formula to use vectors and priors"));
                 }
                 if let Some(v) = raw_vars
                     .iter()
@@ -473,6 +517,7 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
                             lower: None,
                             upper: None,
                         },
+                        prior: None,
                     })
                     .collect()
             }
@@ -484,6 +529,22 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
             }
             let mut out = Vec::new();
             for v in &raw_vars {
+                check_name("variable", &v.name)?;
+                let elements = vector_elements(v)?;
+                if let Some(labels) = &elements {
+                    if out.len() + labels.len() > MAX_DIMENSION {
+                        return Err(KilnError::limit(format!(
+                            "the spec has more than {MAX_DIMENSION} unknowns (counting every element of `{}`)",
+                            v.name
+                        ))
+                        .with_hint("Kiln is built for models with a handful of unknowns"));
+                    }
+                    vectors.push(Vector {
+                        name: v.name.clone(),
+                        first: out.len() as u32,
+                        len: labels.len() as u32,
+                    });
+                }
                 let b = Bounds {
                     lower: v.lower,
                     upper: v.upper,
@@ -503,10 +564,24 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
                         .with_hint("swap them, or widen the interval"));
                     }
                 }
-                out.push(Variable {
-                    name: v.name.clone(),
-                    bounds: b,
-                });
+                if let Some(p) = &v.prior {
+                    if p.trim().is_empty() {
+                        return Err(KilnError::spec(format!("the prior of `{}` is empty", v.name))
+                            .with_hint("write a density and its parameters, as in \"normal(0, 10)\", or leave \"prior\" out"));
+                    }
+                }
+                match elements {
+                    None => out.push(Variable {
+                        name: v.name.clone(),
+                        bounds: b,
+                        prior: v.prior.clone(),
+                    }),
+                    Some(labels) => out.extend(labels.iter().map(|l| Variable {
+                        name: format!("{}[{l}]", v.name),
+                        bounds: b,
+                        prior: v.prior.clone(),
+                    })),
+                }
             }
             out
         }
@@ -519,7 +594,9 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
         .with_hint("Kiln is built for models with a handful of unknowns"));
     }
     for (i, v) in variables.iter().enumerate() {
-        check_name("variable", &v.name)?;
+        if !v.name.contains('[') {
+            check_name("variable", &v.name)?;
+        }
         if variables[..i].iter().any(|w| w.name == v.name) {
             return Err(
                 KilnError::spec(format!("variable `{}` is listed twice", v.name))
@@ -535,12 +612,30 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
         }
     }
 
+    for (i, vec) in vectors.iter().enumerate() {
+        let scalar = variables.iter().any(|v| v.name == vec.name);
+        if scalar || vectors[..i].iter().any(|w| w.name == vec.name) {
+            return Err(
+                KilnError::spec(format!("variable `{}` is listed twice", vec.name))
+                    .with_hint("give every unknown its own name"),
+            );
+        }
+        if data.iter().any(|(c, _)| *c == vec.name) {
+            return Err(KilnError::spec(format!(
+                "`{}` is both a variable and a data column",
+                vec.name
+            ))
+            .with_hint("rename one of them"));
+        }
+    }
+
     let settings = raw.settings.clone().unwrap_or_default();
     validate_settings(&settings)?;
     Ok(Spec {
         title: raw.title.clone().unwrap_or_default(),
         notes: raw.notes.clone().unwrap_or_default(),
         variables,
+        vectors,
         data,
         data_rows,
         model,
@@ -549,158 +644,11 @@ pub fn validate(raw: RawSpec) -> Result<Spec, KilnError> {
     })
 }
 
-fn validate_mixture(comps: &[RawComponent]) -> Result<Vec<Component>, KilnError> {
-    if comps.is_empty() {
-        return Err(KilnError::spec("the mixture has no components")
-            .with_hint("give at least one {\"weight\": …, \"mean\": […], \"cov\": [[…]]}"));
-    }
-    if comps.len() > MAX_COMPONENTS {
-        return Err(KilnError::limit(format!(
-            "the mixture has {} components; the limit is {MAX_COMPONENTS}",
-            comps.len()
-        ))
-        .with_hint("merge components that overlap, or write the model as an \"energy\" formula with logsumexp"));
-    }
-    let d = comps[0].mean.len();
-    if d == 0 {
-        return Err(KilnError::spec("mixture component 1 has an empty mean")
-            .with_hint("give one mean value per unknown"));
-    }
-    let mut out = Vec::new();
-    for (k, c) in comps.iter().enumerate() {
-        let n = k + 1;
-        if !(c.weight.is_finite() && c.weight > 0.0) {
-            return Err(KilnError::spec(format!(
-                "mixture component {n} has weight {}; weights must be positive",
-                c.weight
-            ))
-            .with_hint("use a positive weight, or remove the component"));
-        }
-        if c.mean.len() != d {
-            return Err(KilnError::spec(format!(
-                "mixture component {n} has a mean of length {} but component 1 has {d}",
-                c.mean.len()
-            ))
-            .with_hint("every component needs one mean value per unknown"));
-        }
-        for v in &c.mean {
-            finite(&format!("a mean value of mixture component {n}"), *v)?;
-        }
-        let cov = match (&c.cov, &c.sd) {
-            (Some(_), Some(_)) => {
-                return Err(KilnError::spec(format!(
-                    "mixture component {n} gives both \"cov\" and \"sd\""
-                ))
-                .with_hint("keep one: \"cov\" for a full covariance, \"sd\" for a diagonal one"))
-            }
-            (None, None) => {
-                return Err(KilnError::spec(format!(
-                    "mixture component {n} has neither \"cov\" nor \"sd\""
-                ))
-                .with_hint(
-                    "add \"sd\": [...] (one standard deviation per unknown) or \"cov\": [[...]]",
-                ))
-            }
-            (None, Some(sd)) => {
-                if sd.len() != d {
-                    return Err(KilnError::spec(format!(
-                        "mixture component {n} has {} standard deviations for dimension {d}",
-                        sd.len()
-                    ))
-                    .with_hint("give one standard deviation per unknown"));
-                }
-                if let Some(s) = sd.iter().find(|s| !(s.is_finite() && **s > 0.0)) {
-                    return Err(KilnError::spec(format!(
-                        "mixture component {n} has standard deviation {s}"
-                    ))
-                    .with_hint("standard deviations must be positive"));
-                }
-                (0..d)
-                    .map(|i| {
-                        (0..d)
-                            .map(|j| if i == j { sd[i] * sd[i] } else { 0.0 })
-                            .collect()
-                    })
-                    .collect()
-            }
-            (Some(cov), None) => {
-                if cov.len() != d || cov.iter().any(|r| r.len() != d) {
-                    return Err(KilnError::spec(format!(
-                        "mixture component {n}: the covariance must be {d} × {d}"
-                    ))
-                    .with_hint("give one row of d numbers per unknown"));
-                }
-                for i in 0..d {
-                    for j in 0..d {
-                        finite(
-                            &format!("a covariance entry of mixture component {n}"),
-                            cov[i][j],
-                        )?;
-                        let (a, b) = (cov[i][j], cov[j][i]);
-                        if (a - b).abs() > 1e-12 * (a.abs() + b.abs()).max(1e-300) {
-                            return Err(KilnError::spec(format!(
-                                "mixture component {n}: the covariance is not symmetric (entry {},{} is {a}, entry {},{} is {b})",
-                                i + 1, j + 1, j + 1, i + 1
-                            ))
-                            .with_hint("make cov[i][j] equal cov[j][i]"));
-                        }
-                    }
-                }
-                cov.clone()
-            }
-        };
-        if crate::common::gaussian::Gaussian::new(&c.mean, &cov).is_none() {
-            return Err(KilnError::spec(format!(
-                "mixture component {n}: the covariance is not positive definite"
-            ))
-            .with_hint(
-                "every variance must be positive and every correlation strictly between −1 and 1",
-            ));
-        }
-        out.push(Component {
-            weight: c.weight,
-            mean: c.mean.clone(),
-            cov,
-        });
-    }
-    Ok(out)
-}
-
-fn validate_settings(s: &Settings) -> Result<(), KilnError> {
-    let range = |what: &str, v: Option<usize>, lo: usize, hi: usize| -> Result<(), KilnError> {
-        match v {
-            Some(n) if n < lo || n > hi => Err(KilnError::spec(format!(
-                "setting \"{what}\" is {n}; it must be between {lo} and {hi}"
-            ))
-            .with_hint(format!("choose a value in {lo}..={hi}"))),
-            _ => Ok(()),
-        }
-    };
-    range("chains", s.chains, 1, 64)?;
-    range("draws", s.draws, 10, 1_000_000)?;
-    range("warmup", s.warmup, 10, 1_000_000)?;
-    range("starts", s.starts, 1, 10_000)?;
-    if let Some(m) = &s.method {
-        if m != "joint" && m != "alternating" {
-            return Err(KilnError::spec(format!("setting \"method\" is \"{m}\""))
-                .with_hint("use \"joint\" or \"alternating\""));
-        }
-    }
-    if let Some(m) = &s.integrator {
-        if m != "nuts" && m != "hmc" {
-            return Err(
-                KilnError::spec(format!("setting \"integrator\" is \"{m}\""))
-                    .with_hint("use \"nuts\" or \"hmc\""),
-            );
-        }
-    }
-    if let Some(a) = s.target_accept {
-        if !(a > 0.05 && a < 0.999) {
-            return Err(KilnError::spec(format!("setting \"target_accept\" is {a}"))
-                .with_hint("use a value between 0.05 and 0.999, typically 0.8"));
-        }
-    }
-    Ok(())
+/// The spec with its data replaced by CSV text (the command line's `--data FILE.csv`).
+pub fn with_data_csv(spec: &Spec, csv_text: &str) -> Result<Spec, KilnError> {
+    let mut raw = spec.raw.clone();
+    raw.data = Some(Columns::Csv(csv_text.to_string()));
+    validate(raw)
 }
 
 #[cfg(test)]
@@ -749,6 +697,67 @@ mod tests {
         )
         .unwrap_err();
         assert_eq!(e.hint.as_deref(), Some("did you mean `lower`?"));
+    }
+
+    #[test]
+    fn vectors_expand_into_named_elements_with_shared_bounds_and_priors() {
+        let s = parse_spec(
+            "t.json",
+            r#"{"variables": [{"name": "a"}, {"name": "mu", "size": 3, "lower": 0, "prior": "normal(0, 5)"},
+                {"name": "site", "elements": ["north", "south"]}],
+                "data": "y,g\r\n1,2\r\n", "log_density": "a"}"#,
+        )
+        .unwrap();
+        let names = s.names();
+        assert_eq!(
+            names,
+            ["a", "mu[1]", "mu[2]", "mu[3]", "site[north]", "site[south]"]
+        );
+        assert_eq!(
+            s.vectors[0],
+            Vector {
+                name: "mu".into(),
+                first: 1,
+                len: 3
+            }
+        );
+        assert_eq!(s.vectors[1].first, 4);
+        assert_eq!(s.variables[3].bounds.lower, Some(0.0));
+        assert_eq!(s.variables[2].prior.as_deref(), Some("normal(0, 5)"));
+        assert_eq!(s.data[1], ("g".to_string(), vec![2.0]));
+        // The raw spec keeps what was written, CSV text included.
+        let back = serde_json::to_string(&s.raw).unwrap();
+        assert!(back.contains(r#""data":"y,g\r\n1,2\r\n""#), "{back}");
+        for (bad, what) in [
+            (r#"{"name": "m", "size": 0}"#, "has size 0"),
+            (
+                r#"{"name": "m", "size": 2, "elements": ["a", "b"]}"#,
+                "both",
+            ),
+            (r#"{"name": "m", "elements": ["a", "a"]}"#, "appears twice"),
+            (
+                r#"{"name": "m", "elements": ["a b"]}"#,
+                "not a valid element name",
+            ),
+            (r#"{"name": "m", "size": 65}"#, "1 to 64"),
+            (r#"{"name": "m", "prior": " "}"#, "is empty"),
+        ] {
+            let text = format!(r#"{{"variables": [{bad}], "energy": "0"}}"#);
+            let e = parse_spec("t", &text).unwrap_err();
+            assert!(e.message.contains(what), "{bad}: {}", e.message);
+        }
+        let e = parse_spec(
+            "t",
+            r#"{"variables": [{"name": "m", "size": 2}, {"name": "m"}], "energy": "0"}"#,
+        )
+        .unwrap_err();
+        assert!(e.message.contains("listed twice"));
+        let e = parse_spec(
+            "t",
+            r#"{"variables": [{"name": "m", "sise": 2}], "energy": "0"}"#,
+        )
+        .unwrap_err();
+        assert_eq!(e.hint.as_deref(), Some("did you mean `size`?"));
     }
 
     #[test]

@@ -1,7 +1,7 @@
 //! validated spec → target density on the real line.
 //!
-//! Owns: [`Target`], which puts the pieces together: the compiled formula (or the user's
-//! Gaussian mixture), the maps of bounded unknowns to the real line (logit for two bounds, log
+//! Owns: [`Target`], which puts the pieces together: the compiled formula with the spec's
+//! priors added to its log density (or the user's Gaussian mixture), the maps of bounded unknowns to the real line (logit for two bounds, log
 //! for one) with their log-Jacobians, and the sign convention (energy or log density). Every
 //! later stage works in these unconstrained coordinates `z`; because the log-Jacobian is part of
 //! the energy, log Z and every reported number are in the user's coordinates. Non-finite energy
@@ -11,7 +11,7 @@
 use crate::common::error::KilnError;
 use crate::common::gaussian::{Gaussian, Mixture, MixtureScratch};
 use crate::common::maths::{exp, ln, logistic, softplus};
-use crate::formula::resolve::resolve;
+use crate::formula::resolve::{resolve, AddedTerm, Inputs};
 use crate::formula::syntax::parse;
 use crate::formula::tape::{DataTable, Evaluator, Tape};
 use crate::model::spec::{Bounds, Model, Spec};
@@ -120,6 +120,30 @@ pub struct Target {
     kind: Kind,
 }
 
+/// The priors of a spec as terms to add: (source for messages, text, the unknowns it is a
+/// prior of), one per variable entry (a vector's elements share theirs).
+pub fn prior_terms(spec: &Spec) -> Vec<(String, String, Vec<u32>)> {
+    let mut out: Vec<(String, String, Vec<u32>)> = Vec::new();
+    let mut i = 0;
+    while i < spec.variables.len() {
+        let v = &spec.variables[i];
+        let vector = spec.vectors.iter().find(|w| w.first as usize == i);
+        let (name, len) = match vector {
+            Some(w) => (w.name.clone(), w.len as usize),
+            None => (v.name.clone(), 1),
+        };
+        if let Some(p) = &v.prior {
+            out.push((
+                format!("prior of `{name}`"),
+                p.clone(),
+                (i as u32..(i + len) as u32).collect(),
+            ));
+        }
+        i += len;
+    }
+    out
+}
+
 /// Exact answers for a mixture target.
 #[derive(Clone, Debug)]
 pub struct MixtureTruth {
@@ -147,20 +171,34 @@ impl Target {
                 let program = parse(field, text)?;
                 let data_names: Vec<String> = spec.data.iter().map(|(n, _)| n.clone()).collect();
                 let columns: Vec<Vec<f64>> = spec.data.iter().map(|(_, c)| c.clone()).collect();
-                let graph = resolve(field, text, &program, &names, &data_names, spec.data_rows)?;
-                let tape = Tape::compile(
-                    &graph,
-                    names.len(),
-                    &DataTable {
-                        columns: &columns,
-                        rows: spec.data_rows,
-                    },
-                );
+                let table = DataTable {
+                    columns: &columns,
+                    rows: spec.data_rows,
+                };
                 let sign = if matches!(spec.model, Model::Energy(_)) {
                     1.0
                 } else {
                     -1.0
                 };
+                let inputs = Inputs {
+                    unknowns: &names,
+                    vectors: &spec.vectors,
+                    data_names: &data_names,
+                    data: &table,
+                };
+                let priors = prior_terms(spec);
+                // A prior is a log density: subtracted from an energy, added to a log density.
+                let added: Vec<AddedTerm> = priors
+                    .iter()
+                    .map(|(source, text, subjects)| AddedTerm {
+                        source,
+                        text,
+                        subjects: subjects.clone(),
+                        coefficient: -sign,
+                    })
+                    .collect();
+                let graph = resolve(field, text, &program, &inputs, &added)?;
+                let tape = Tape::compile(&graph, names.len(), &table);
                 Kind::Formula {
                     tape: Arc::new(tape),
                     sign,

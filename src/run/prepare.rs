@@ -23,6 +23,9 @@ pub struct Unknown {
     pub name: String,
     pub lower: Option<f64>,
     pub upper: Option<f64>,
+    /// The prior given in the spec (added to the log density), when there is one.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub prior: Option<String>,
 }
 
 #[derive(Clone, Debug, Serialize)]
@@ -86,8 +89,32 @@ pub(super) fn unknowns_of(spec: &Spec) -> Vec<Unknown> {
             name: v.name.clone(),
             lower: v.bounds.lower,
             upper: v.bounds.upper,
+            prior: v.prior.clone(),
         })
         .collect()
+}
+
+/// The note that states the spec's priors (`None` without priors), e.g. "priors from the spec,
+/// added to the log density: `mu` normal(0, 2); `theta[1]`…`theta[6]` normal(mu, 0.6)".
+pub(super) fn priors_note(spec: &Spec) -> Option<String> {
+    let parts: Vec<String> = crate::model::target::prior_terms(spec)
+        .iter()
+        .map(|(_, text, subjects)| {
+            let name = |i: u32| spec.variables[i as usize].name.clone();
+            let who = match subjects.as_slice() {
+                [one] => format!("`{}`", name(*one)),
+                [first, .., last] => format!("`{}`…`{}`", name(*first), name(*last)),
+                [] => String::new(),
+            };
+            format!("{who} {}", text.trim())
+        })
+        .collect();
+    (!parts.is_empty()).then(|| {
+        format!(
+            "priors from the spec, added to the log density: {}",
+            parts.join("; ")
+        )
+    })
 }
 
 /// A target with its modes and Laplace approximation: the input of every later stage.
@@ -109,7 +136,10 @@ pub fn prepare(spec: &Spec) -> Result<Prepared, KilnError> {
         opts.max_starts = s;
         opts.stop_rule = false;
     }
-    let search = find_modes(&target, opts)?;
+    let mut search = find_modes(&target, opts)?;
+    if let Some(note) = priors_note(spec) {
+        search.notes.insert(0, note);
+    }
     let laplace = Laplace::from_modes(&search.modes)?;
     Ok(Prepared {
         target,

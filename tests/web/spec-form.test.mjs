@@ -5,6 +5,7 @@ import assert from 'node:assert/strict';
 import {
   SETTING_KEYS, DEFAULT_SETTINGS, emptyForm, newComponent, formToSpec, specToForm, sanitiseForm, sanitiseSettings,
 } from '../../www/spec-form.js';
+import { columnsToCsv } from '../../www/csv.js';
 import { DEMOS } from './demos.mjs';
 
 // The page shows these run settings when a spec leaves them out (the defaults in the form).
@@ -15,7 +16,10 @@ test('every demo survives spec -> form -> spec (the shown defaults filled in)', 
     const loaded = specToForm(spec);
     const back = formToSpec(loaded.form, loaded.settings);
     assert.deepEqual(back.errors, [], file);
+    // The data table goes to the engine as CSV text (the engine reads it, in the page as on the
+    // command line), so a demo's columns come back as the text the table shows.
     const expected = { ...spec, settings: { ...SHOWN_DEFAULTS, ...spec.settings } };
+    if (spec.data && !spec.mixture) expected.data = columnsToCsv(spec.data);
     assert.deepEqual(back.spec, expected, file);
     // And once more: the result is a fixed point.
     const again = specToForm(back.spec);
@@ -55,12 +59,12 @@ test('keys the form cannot show are kept verbatim and come back', () => {
   assert.equal(settings.seed, '7');
   assert.equal(settings.chains, '2');
   assert.deepEqual(form.extraSettings, { tune: true });
-  assert.deepEqual(form.variables, [{ name: 'x', lower: '0', upper: '', extra: { prior: 'flat' } }]);
+  assert.deepEqual(form.variables, [{ name: 'x', size: '', lower: '0', upper: '', prior: 'flat', extra: null }]);
   const back = formToSpec(form, settings);
   assert.deepEqual(back.errors, []);
   assert.deepEqual(back.spec, {
     title: 42,
-    variables: [{ prior: 'flat', name: 'x', lower: 0 }],
+    variables: [{ name: 'x', lower: 0, prior: 'flat' }],
     energy: 'x',
     log_density: 'ignored by the form',
     data: { a: [1, '2'] },
@@ -102,10 +106,11 @@ test('local errors are rendered like the engine\'s, with where they are', () => 
   form.formula = 'x^2';
   form.dataCsv = 'a\nq\n';
   const { errors, spec } = formToSpec(form, { ...DEFAULT_SETTINGS, seed: '-1', chains: '', draws: '2.5' });
+  // The data is the engine's to read (and to report on): it goes into the spec as typed.
+  assert.equal(spec.data, 'a\nq\n');
   assert.deepEqual(errors, [
     'error: the lower bound `abc` is not a number\n --> unknowns, row 1 (x)\n',
     'error: the upper bound `1..2` is not a number\n --> unknowns, row 2 (no name)\n',
-    'error: `q` is not a number\n --> data, line 2, column 1 (a)\n',
     'error: the seed must be a whole number of at least 0, not `-1`\n --> run settings\n',
     'error: the number of chains is empty\n --> run settings\n',
     'error: the number of kept draws must be a whole number of at least 1, not `2.5`\n --> run settings\n',
@@ -121,6 +126,30 @@ test('local errors are rendered like the engine\'s, with where they are', () => 
   ]);
 });
 
+test('vectors and priors: a size, element names or a prior in the unknowns table', () => {
+  const form = emptyForm();
+  form.variables = [
+    { name: 'mu', size: ' 3 ', lower: '', upper: '', prior: ' normal(0, 10) ' },
+    { name: 'site', size: 'north, south', lower: '0', upper: '', prior: '' },
+    { name: 's', size: '', lower: '0', upper: '', prior: '' },
+  ];
+  form.formula = 'sum(logd_normal(y, mu[g], s))';
+  const { spec, errors } = formToSpec(form, DEFAULT_SETTINGS);
+  assert.deepEqual(errors, []);
+  assert.deepEqual(spec.variables, [
+    { name: 'mu', size: 3, prior: 'normal(0, 10)' },
+    { name: 'site', elements: ['north', 'south'], lower: 0 },
+    { name: 's', lower: 0 },
+  ]);
+  const back = specToForm(spec).form.variables;
+  assert.deepEqual(back.map((v) => [v.name, v.size, v.prior]), [['mu', '3', 'normal(0, 10)'], ['site', 'north, south', ''], ['s', '', '']]);
+  // What the table cannot show exactly is kept as written.
+  const odd = specToForm({ variables: [{ name: 'm', size: 2, elements: ['a', 'b'], prior: 7 }], energy: '0' }).form.variables[0];
+  assert.deepEqual(odd.extra, { size: 2, elements: ['a', 'b'], prior: 7 });
+  // CSV text in a spec stays text.
+  assert.equal(specToForm({ variables: [], energy: '0', data: 'y\n1\n' }).form.dataCsv, 'y\n1\n');
+});
+
 test('settings: unknown method and integrator fall back to the defaults', () => {
   const s = formToSpec(emptyForm(), { ...DEFAULT_SETTINGS, method: 'other', integrator: 'hmc', seed: ' 12 ' }).settings;
   assert.deepEqual(s, { seed: 12, chains: 4, draws: 2000, warmup: 1000, method: 'alternating', integrator: 'hmc' });
@@ -133,7 +162,7 @@ test('specToForm refuses what is not a JSON object', () => {
 
 test('newComponent has one mean and one sd per unknown', () => {
   const f = emptyForm();
-  f.variables.push({ name: 'y', lower: '', upper: '' });
+  f.variables.push({ name: 'y', size: '', lower: '', upper: '', prior: '' });
   assert.deepEqual(newComponent(f), { weight: '1', mean: '0, 0', shape: 'sd', spread: '1, 1', extra: null });
   f.variables = [];
   assert.deepEqual(newComponent(f), { weight: '1', mean: '0', shape: 'sd', spread: '1', extra: null });
@@ -143,7 +172,7 @@ test('a stored form is sanitised without losing its texts', () => {
   assert.deepEqual(sanitiseForm(null), emptyForm());
   assert.deepEqual(sanitiseForm({ title: 5, notes: 'n', kind: 'bogus', formula: 'x', variables: [null, { name: 'a', lower: 1 }], mixture: 'x', extra: [], dataCsv: 'a\n1\n' }), {
     title: '5', notes: 'n', kind: 'energy', formula: 'x', dataCsv: 'a\n1\n',
-    variables: [{ name: 'a', lower: '1', upper: '', extra: null }], mixture: [], extra: {}, extraSettings: {},
+    variables: [{ name: 'a', size: '', lower: '1', upper: '', prior: '', extra: null }], mixture: [], extra: {}, extraSettings: {},
   });
   assert.deepEqual(sanitiseSettings({ seed: 3, method: 'joint', bogus: 1 }), { ...DEFAULT_SETTINGS, seed: '3', method: 'joint' });
   assert.deepEqual(sanitiseSettings('x'), DEFAULT_SETTINGS);

@@ -167,6 +167,9 @@ pub(super) fn generic(op: Binary, a: u32, b: u32) -> Op {
         Binary::Min => Op::Min(a, b),
         Binary::Max => Op::Max(a, b),
         Binary::LogAddExp => Op::LogAddExp(a, b),
+        Binary::XLogY | Binary::XLog1pY | Binary::WherePos | Binary::WhereNonNeg => {
+            Op::Bin(op, a, b)
+        }
     }
 }
 
@@ -199,7 +202,9 @@ pub(super) struct Compiler<'a> {
     /// Number of parents of each node (its uses), the root counted once.
     pub(super) uses: Vec<u32>,
     pub(super) data: &'a DataTable<'a>,
-    pub(super) data_only: HashMap<NodeId, Vec<f64>>,
+    pub(super) row_sets: &'a [Vec<u32>],
+    /// Data-only values by node and row set.
+    pub(super) data_only: HashMap<(NodeId, u32), Vec<f64>>,
     pub(super) replaced: HashMap<NodeId, Replacement>,
     pub(super) slot_of: HashMap<NodeId, u32>,
     pub(super) seg: SegBuilder,
@@ -224,7 +229,7 @@ pub(super) fn node_flags(nodes: &[Node]) -> Vec<Flags> {
                 var: flags[a as usize].var || flags[b as usize].var,
                 data: flags[a as usize].data || flags[b as usize].data,
             },
-            Node::Sum(b) => Flags {
+            Node::Sum(b, _) => Flags {
                 var: flags[b as usize].var,
                 data: false,
             },
@@ -235,7 +240,13 @@ pub(super) fn node_flags(nodes: &[Node]) -> Vec<Flags> {
 
 /// The work measure: operations outside sums once, a row body's operations once per row; a
 /// sum of a constant body costs nothing, a sum of a row-independent body one multiplication.
-pub(super) fn formula_work(nodes: &[Node], flags: &[Flags], root: NodeId, rows: usize) -> usize {
+pub(super) fn formula_work(
+    nodes: &[Node],
+    flags: &[Flags],
+    root: NodeId,
+    all_rows: usize,
+    row_sets: &[Vec<u32>],
+) -> usize {
     pub(super) fn row_ops(
         id: NodeId,
         nodes: &[Node],
@@ -299,7 +310,8 @@ pub(super) fn formula_work(nodes: &[Node], flags: &[Flags], root: NodeId, rows: 
                 stack.push(b);
                 stack.push(a);
             }
-            Node::Sum(b) => {
+            Node::Sum(b, set) => {
+                let rows = row_set(row_sets, set).map_or(all_rows, |r| r.len());
                 let f = flags[b as usize];
                 if !f.var {
                 } else if !f.data {
@@ -613,12 +625,13 @@ impl Compiler<'_> {
                     self.seg.binary(op, sa, sb)
                 }
             },
-            (None, Node::Sum(body)) => {
+            (None, Node::Sum(body, set)) => {
                 let (nodes, data, flags) = (self.nodes, self.data, &self.flags);
+                let rows = row_set(self.row_sets, set);
+                let n_rows = rows.map_or(data.rows, |r| r.len());
                 let cache = &mut self.data_only;
-                let mut values = |n: NodeId| data_only_values(nodes, data, cache, n);
-                let (mut lp, invariants) =
-                    RowLoop::build(nodes, flags, body, data.rows, &mut values);
+                let mut values = |n: NodeId| data_only_values(nodes, data, cache, n, set, rows);
+                let (mut lp, invariants) = RowLoop::build(nodes, flags, body, n_rows, &mut values);
                 lp.inputs = invariants.iter().map(|&n| self.emit(n)).collect();
                 self.loops.push(lp);
                 self.seg.push(Op::Sum((self.loops.len() - 1) as u32))
@@ -629,22 +642,38 @@ impl Compiler<'_> {
     }
 }
 
-/// Values of a data-only node over every row (memoised in `cache`).
+/// The rows of row set `set` (`None`: every row).
+pub(super) fn row_set(row_sets: &[Vec<u32>], set: u32) -> Option<&[u32]> {
+    if set == crate::formula::resolve::ALL_ROWS {
+        None
+    } else {
+        row_sets.get(set as usize).map(|r| &r[..])
+    }
+}
+
+/// Values of a data-only node over the rows of row set `set` (`rows`; `None`: every row),
+/// memoised in `cache`.
 pub(super) fn data_only_values(
     nodes: &[Node],
     data: &DataTable,
-    cache: &mut HashMap<NodeId, Vec<f64>>,
+    cache: &mut HashMap<(NodeId, u32), Vec<f64>>,
     id: NodeId,
+    set: u32,
+    rows: Option<&[u32]>,
 ) -> Vec<f64> {
-    if let Some(v) = cache.get(&id) {
+    if let Some(v) = cache.get(&(id, set)) {
         return v.clone();
     }
-    let mut out = Vec::with_capacity(data.rows);
+    let mut out = Vec::with_capacity(rows.map_or(data.rows, |r| r.len()));
     let mut memo: HashMap<NodeId, f64> = HashMap::new();
-    for row in 0..data.rows {
+    let mut at = |row: usize| {
         memo.clear();
         out.push(eval_row(nodes, id, data, row, &mut memo));
+    };
+    match rows {
+        Some(r) => r.iter().for_each(|&row| at(row as usize)),
+        None => (0..data.rows).for_each(at),
     }
-    cache.insert(id, out.clone());
+    cache.insert((id, set), out.clone());
     out
 }

@@ -29,7 +29,7 @@ pub(super) fn eval_row(
             op.apply(x, y)
         }
         // `resolve` guarantees data-only nodes contain no unknowns and no nested sums.
-        Node::Var(_) | Node::Sum(_) => f64::NAN,
+        Node::Var(_) | Node::Sum(..) => f64::NAN,
     };
     memo.insert(id, v);
     v
@@ -215,6 +215,8 @@ pub(super) fn forward<const GRAD: bool>(
                 }
             }
             Op::Sum(s) => sum(s as usize, &vals[..first + k]),
+            Op::Un(u, a) => u.apply(v(a)),
+            Op::Bin(op, a, b) => op.apply(v(a), v(b)),
         };
         vals[o] = out;
     }
@@ -391,6 +393,17 @@ pub(super) fn reverse<'a>(
                 let gd = g * d;
                 if gd != 0.0 {
                     add!(a, gd * c);
+                }
+            }
+            Op::Un(u, a) => add!(a, g * u.derivative(v(a), vals[o])),
+            Op::Bin(op, a, b) => {
+                let (da, db) = op.derivatives(v(a), v(b), vals[o]);
+                // A zero slope passes nothing on (a failed support test, an x·log y at x = 0).
+                if da != 0.0 {
+                    add!(a, g * da);
+                }
+                if db != 0.0 {
+                    add!(b, g * db);
                 }
             }
             Op::Sum(s) => {

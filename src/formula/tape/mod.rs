@@ -28,7 +28,9 @@ mod compile;
 mod eval;
 mod rows;
 
-use compile::{data_only_values, formula_work, node_flags, Compiler, Replacement, SegBuilder};
+use compile::{
+    data_only_values, formula_work, node_flags, row_set, Compiler, Replacement, SegBuilder,
+};
 pub use eval::Evaluator;
 use rows::RowLoop;
 
@@ -97,6 +99,10 @@ enum Op {
     ScaledUn(Unary, u32, f64),
     /// The value of row loop number `k`.
     Sum(u32),
+    /// Any other one-argument function (`apply` and `derivative` of [`Unary`]).
+    Un(Unary, u32),
+    /// Any other two-argument operation (`apply` and `derivatives` of [`Binary`]).
+    Bin(Binary, u32, u32),
 }
 
 impl Op {
@@ -120,6 +126,7 @@ impl Op {
             Unary::Tanh => Op::Tanh(a),
             Unary::Erf => Op::Erf(a),
             Unary::Lgamma => Op::Lgamma(a),
+            Unary::Softplus | Unary::LogI0e => Op::Un(op, a),
         }
     }
 
@@ -166,6 +173,8 @@ impl Op {
             Op::LogSumExp(s, n) => Op::LogSumExp(s, n),
             Op::ScaledUn(u, a, c) => Op::ScaledUn(u, f(a), c),
             Op::Sum(k) => Op::Sum(k),
+            Op::Un(u, a) => Op::Un(u, f(a)),
+            Op::Bin(op, a, b) => Op::Bin(op, f(a), f(b)),
         }
     }
 }
@@ -305,7 +314,7 @@ impl Tape {
         let mut uses = vec![0u32; nodes.len()];
         for n in nodes {
             match *n {
-                Node::Unary(_, a) | Node::Sum(a) => uses[a as usize] += 1,
+                Node::Unary(_, a) | Node::Sum(a, _) => uses[a as usize] += 1,
                 Node::Binary(_, a, b) => {
                     uses[a as usize] += 1;
                     uses[b as usize] += 1;
@@ -319,6 +328,7 @@ impl Tape {
             flags,
             uses,
             data,
+            row_sets: &graph.row_sets,
             data_only: HashMap::new(),
             replaced: HashMap::new(),
             slot_of: HashMap::new(),
@@ -327,16 +337,18 @@ impl Tape {
         };
         // Sums whose body is constant or row-independent become ordinary values.
         for (i, n) in nodes.iter().enumerate() {
-            if let Node::Sum(b) = *n {
+            if let Node::Sum(b, set) = *n {
                 let f = c.flags[b as usize];
+                let rows = row_set(&graph.row_sets, set);
                 if !f.var {
-                    let total = data_only_values(nodes, data, &mut c.data_only, b)
+                    let total = data_only_values(nodes, data, &mut c.data_only, b, set, rows)
                         .iter()
                         .sum();
                     c.replaced.insert(i as NodeId, Replacement::Const(total));
                 } else if !f.data {
+                    let n = rows.map_or(data.rows, |r| r.len());
                     c.replaced
-                        .insert(i as NodeId, Replacement::Times(data.rows as f64, b));
+                        .insert(i as NodeId, Replacement::Times(n as f64, b));
                 }
             }
         }
@@ -349,7 +361,7 @@ impl Tape {
             }
         }
         let root = c.emit(graph.root);
-        let work = formula_work(nodes, &c.flags, graph.root, data.rows);
+        let work = formula_work(nodes, &c.flags, graph.root, data.rows, &graph.row_sets);
         let mut loops = c.loops;
         let outer = c.seg.finish(root, &mut loops);
         Tape {

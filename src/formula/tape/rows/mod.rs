@@ -236,7 +236,7 @@ impl ColBuilder {
                 self.binary(op, a, b)
             }
             // A node with unknowns and data is an operation (`resolve` allows no nested sums).
-            Node::Var(_) | Node::Data(_) | Node::Sum(_) => Arg::Const(f64::NAN),
+            Node::Var(_) | Node::Data(_) | Node::Sum(..) => Arg::Const(f64::NAN),
         };
         self.memo.insert(id, arg);
         arg
@@ -384,6 +384,8 @@ enum Factor {
     MulPow(NodeId, i32),
     /// ÷ b^k: from (u / b)^k = u^k / b^k.
     DivPow(NodeId, i32),
+    /// A support test on a row-invariant condition `b`: Σ where(b, v) = where(b, Σ v).
+    Where(Binary, NodeId),
 }
 
 #[derive(Clone, Copy, Debug)]
@@ -434,6 +436,11 @@ fn split(ctx: &Ctx, id: NodeId, neg: bool, factors: &mut Vec<Factor>, out: &mut 
             split(ctx, b, neg != (op == Binary::Sub), factors, out);
         }
         Node::Unary(Unary::Neg, a) => split(ctx, a, !neg, factors, out),
+        Node::Binary(op @ (Binary::WherePos | Binary::WhereNonNeg), c, v) if ctx.is_inv(c) => {
+            factors.push(Factor::Where(op, c));
+            split(ctx, v, neg, factors, out);
+            factors.pop();
+        }
         Node::Binary(Binary::Mul, a, b) if ctx.is_inv(b) && finite(b) => {
             factors.push(Factor::Mul(b));
             split(ctx, a, neg, factors, out);
@@ -570,8 +577,11 @@ fn factor(
     // Every invariant the combination reads, registered before the inputs are numbered.
     for term in &terms {
         for f in &term.factors {
-            let (Factor::Mul(b) | Factor::Div(b) | Factor::MulPow(b, _) | Factor::DivPow(b, _)) =
-                *f;
+            let (Factor::Mul(b)
+            | Factor::Div(b)
+            | Factor::MulPow(b, _)
+            | Factor::DivPow(b, _)
+            | Factor::Where(_, b)) = *f;
             if ctx.constant(b).is_none() {
                 ctx.invariant(b);
             }
@@ -622,6 +632,12 @@ fn factor(
                     let s = value_of(&mut cb, ctx, b);
                     guard(s, Guard::NonZero);
                     cb.binary(Binary::Div, x, s)
+                }
+                Factor::Where(op, c) => {
+                    // Outside the support the term is −∞, the total is not finite, and the
+                    // body as written (which tests every row) gives the value.
+                    let s = value_of(&mut cb, ctx, c);
+                    cb.binary(op, s, x)
                 }
                 Factor::MulPow(b, k) | Factor::DivPow(b, k) => {
                     let p = match ctx.constant(b) {

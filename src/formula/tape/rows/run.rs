@@ -459,6 +459,7 @@ pub(super) fn col_forward<const GRAD: bool>(
         COp::Un(Unary::Abs) => map1(a, out, f64::abs),
         COp::Un(Unary::Exp) => map1(a, out, maths::exp),
         COp::Un(Unary::Log) => map1(a, out, maths::ln),
+        COp::Un(Unary::Log1p) => map1(a, out, maths::ln_1p),
         COp::Un(u @ (Unary::Sin | Unary::Cos)) if GRAD => {
             for (r, (o, d)) in out.iter_mut().zip(aux.iter_mut()).enumerate() {
                 let (s, c) = libm::sincos(a.at(r));
@@ -528,6 +529,9 @@ pub(super) fn col_partial(
         }
         (COp::Un(Unary::Sin | Unary::Cos), _) => drive_ga(s, n, tmp, g, Src::Col(aux), mask),
         (COp::Un(Unary::Exp), _) => drive_ga(s, n, tmp, g, vs, mask),
+        // The derivatives of `Unary::derivative`, written out so that the loop needs no match.
+        (COp::Un(Unary::Log), _) => drive_ga(s, n, tmp, g, a, |g, x| mask(g, 1.0 / x)),
+        (COp::Un(Unary::Log1p), _) => drive_ga(s, n, tmp, g, a, |g, x| mask(g, 1.0 / (1.0 + x))),
         (COp::Un(u), _) => drive_gab(s, n, tmp, g, a, vs, move |g, x, v| {
             mask(g, u.derivative(x, v))
         }),
