@@ -2,7 +2,7 @@
 //! and error hints.
 //!
 //! Owns: [`num`] (short numbers), [`decimals4`] (log Z values), [`pm`] (value ± error),
-//! [`table`] (aligned text columns).
+//! [`share`] (a share as a percentage), [`table`] (aligned text columns).
 //! Must not: decide what to say (callers do), or know about any stage's types.
 
 use std::fmt::Write;
@@ -65,6 +65,24 @@ pub fn table(rows: &[Vec<String>]) -> String {
     out
 }
 
+/// A share in [0, 1] as a percentage with two significant digits ("34 %", "0.042 %"); a
+/// share below 0.001 % is "< 0.001 %", never a rounded zero, and only 0 is "0 %".
+pub fn share(v: f64) -> String {
+    if !v.is_finite() {
+        return num(v);
+    }
+    let p = 100.0 * v;
+    if p == 0.0 {
+        return "0 %".into();
+    }
+    if p.abs() < 1e-3 {
+        return "< 0.001 %".into();
+    }
+    let digits = (1 - libm::floor(libm::log10(p.abs())) as i32).clamp(0, 4) as usize;
+    let t = format!("{p:.digits$}");
+    format!("{t} %")
+}
+
 /// Standard errors below this are printed as "< 1e-10", never as zero.
 pub const SE_FLOOR: f64 = 1e-10;
 
@@ -113,5 +131,15 @@ mod tests {
         assert_eq!(num(1e-9), "1.0000e-9");
         assert_eq!(num(31.4), "31.4");
         assert_eq!(num(2.0), "2");
+    }
+
+    #[test]
+    fn shares_keep_two_digits_and_never_round_to_zero() {
+        assert_eq!(share(0.34), "34 %");
+        assert_eq!(share(0.00042), "0.042 %");
+        assert_eq!(share(0.0012345), "0.12 %");
+        assert_eq!(share(1e-9), "< 0.001 %");
+        assert_eq!(share(0.0), "0 %");
+        assert_eq!(share(1.0), "100 %");
     }
 }
