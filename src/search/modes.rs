@@ -319,7 +319,7 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
             format!("{found_outward} of the {} modes were found from known modes, by crossing barriers and by repeating the steps between neighbouring modes ({hops} optimiser runs)", modes.len()),
         ));
     }
-    let scanned = scan(target, &mut modes)?;
+    let scanned = scan(target, &mut modes, opts.scan_work)?;
     let scan_new: usize = scanned.iter().map(|s| s.new_modes).sum();
     if scan_new > 0 {
         notes.push(Message::note(
