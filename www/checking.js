@@ -11,7 +11,7 @@ import { scheduleRender } from './render-loop.js';
 import { $, el, append, clear } from './dom.js';
 import { isNum } from './numbers.js';
 import { fmtSig, fmtFixed, fmtDuration } from './format.js';
-import { warnList, colourSwatches } from './widgets.js';
+import { warnList, messageItems, colourSwatches } from './widgets.js';
 
 let firstCheckResolve = null;
 /** Resolves once the first check (of any slot) has an answer. */
@@ -122,7 +122,7 @@ export function renderCheck() {
     if (modes.some(function (m) { return m.non_quadratic; })) append(modesNode, el('p', { class: 'hint' }, '* measured to be far from Gaussian: the Laplace value is unreliable for it.'));
     colourSwatches(modesNode);
   }
-  const warns = (Array.isArray(r.warnings) ? r.warnings : []).concat(r.grid && Array.isArray(r.grid.warnings) ? r.grid.warnings : []);
-  // The statement of the spec's priors is a note, not a warning.
-  if (warns.length) append(modesNode, warnList(warns.map(function (w) { return { text: w, kind: /^priors from the spec/.test(w) ? 'note' : 'warning' }; })));
+  // The check's warnings (the grid's among them); its notes are in the results pane's fold.
+  const warns = messageItems(r.warnings, 'warning');
+  if (warns.length) append(modesNode, warnList(warns));
 }
