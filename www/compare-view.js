@@ -57,7 +57,8 @@ export function renderCompare() {
   const bf = cmp && cmp.result;
   if (bf) {
     append(card, el('div', { class: 'bf-row' },
-      el('div', null, el('div', { class: 'logz-label' }, 'log Bayes factor log(Z_A / Z_B)'), el('div', { class: 'bf-value', 'data-testid': 'bayes-factor' }, fmtPM(bf.log_bayes_factor, bf.log_bayes_factor_se))),
+      el('div', null, el('div', { class: 'logz-label' }, 'log Bayes factor log(Z_A / Z_B)' + (bf.judged ? '' : ', not to be used')),
+        el('div', { class: bf.judged ? 'bf-value' : 'bf-value refused', 'data-testid': 'bayes-factor' }, fmtPM(bf.log_bayes_factor, bf.log_bayes_factor_se))),
       bf.judged
         ? el('p', { class: 'bf-words', 'data-testid': 'bayes-factor-meaning' }, sentence(bf.meaning) + '.')
         : el('p', { class: 'bf-words refused', 'data-testid': 'bayes-factor-refused' }, 'Not to be used: ' + str(bf.refused_because) + '.')));
