@@ -9,7 +9,7 @@
 import { state, activeSlot, unknownNames } from './state.js';
 import { runIsStale } from './runs.js';
 import { isNum } from './numbers.js';
-import { str, sentence, fmtSig, fmtFixed, fmtPM, fmtInt, fmtPct, fmtDuration } from './format.js';
+import { str, sentence, fmtSig, fmtFixed, fmtPM, fmtInt, fmtPct, fmtShare, fmtDuration } from './format.js';
 import { $, el, append, clear, setChildren } from './dom.js';
 import { warnList, messageItems, colourSwatches } from './widgets.js';
 
@@ -230,7 +230,7 @@ function renderModes(slot, r, check) {
     const n = order.folded.length;
     const nv = order.folded_not_visited || 0;
     const open = openFold === tbl;
-    const label = n + ' more modes, ' + fmtPct(order.folded_mass) + ' together' + (nv === n ? ', none visited' : nv ? ', ' + nv + ' of them not visited' : '');
+    const label = n + ' more modes, ' + fmtShare(order.folded_mass) + ' together' + (nv === n ? ', none visited' : nv ? ', ' + nv + ' of them not visited' : '');
     body.push(el('tr', { class: 'fold-row', 'data-testid': 'fold-row' }, el('td', { colspan: head.length },
       el('button', {
         type: 'button', class: 'link-button fold-toggle', 'aria-expanded': open ? 'true' : 'false', 'data-testid': 'fold-toggle',

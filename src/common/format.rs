@@ -2,7 +2,8 @@
 //! and error hints.
 //!
 //! Owns: [`num`] (short numbers), [`decimals4`] (log Z values), [`pm`] (value ± error),
-//! [`share`] (a share as a percentage), [`table`] (aligned text columns).
+//! [`share`] (a share as a percentage), [`rough`] (a factor in two significant digits),
+//! [`table`] (aligned text columns).
 //! Must not: decide what to say (callers do), or know about any stage's types.
 
 use std::fmt::Write;
@@ -30,6 +31,20 @@ pub fn num(v: f64) -> String {
     } else {
         format!("{v:.4e}")
     }
+}
+
+/// A rough factor, in two significant digits ("about 7.1 times", "about 150 times",
+/// "about 5.2e21 times"): what the words around a Bayes factor can honestly claim.
+pub fn rough(v: f64) -> String {
+    if !v.is_finite() || v == 0.0 {
+        return num(v);
+    }
+    let a = v.abs();
+    if a >= 1e6 {
+        return format!("{v:.1e}");
+    }
+    let scale = libm::pow(10.0, libm::floor(libm::log10(a)) - 1.0);
+    num(libm::round(v / scale) * scale)
 }
 
 /// A log Z value with four decimals.
@@ -131,6 +146,15 @@ mod tests {
         assert_eq!(num(1e-9), "1.0000e-9");
         assert_eq!(num(31.4), "31.4");
         assert_eq!(num(2.0), "2");
+    }
+
+    #[test]
+    fn rough_factors_keep_two_significant_digits() {
+        assert_eq!(rough(7.12675), "7.1");
+        assert_eq!(rough(20.0855), "20");
+        assert_eq!(rough(148.413), "150");
+        assert_eq!(rough(1.0), "1");
+        assert_eq!(rough(5.18470553e21), "5.2e21");
     }
 
     #[test]

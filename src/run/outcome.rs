@@ -10,7 +10,7 @@ use super::prepare::{unknowns_of, Prepared, Unknown};
 use super::session::Session;
 use super::settings::{Overrides, RunSettings};
 use crate::common::error::KilnError;
-use crate::common::format::num;
+use crate::common::format::rough;
 use crate::common::maths::sqrt;
 use crate::common::message::Message;
 use crate::common::stats::resample;
@@ -314,7 +314,7 @@ pub fn bayes_factor(a: &Evidence, b: &Evidence) -> BayesFactor {
         };
         format!(
             "the data are about {} times as probable under model {better} as under model {worse} (a difference of {by:.3} nats in log evidence)",
-            num(crate::common::maths::exp(by))
+            rough(crate::common::maths::exp(by))
         )
     };
     let limited: Vec<&str> = [("A", a), ("B", b)]

@@ -9,7 +9,8 @@ import assert from 'node:assert/strict';
 import fs from 'node:fs';
 import path from 'node:path';
 import { startServer, launch, openPage, shot, kilnJson, ROOT, ARTIFACTS } from './harness.mjs';
-import { fmtPM } from '../../www/format.js';
+import { fmtPM, fmtShare } from '../../www/format.js';
+import { spawnSync } from 'node:child_process';
 
 let server;
 let browser;
@@ -18,6 +19,13 @@ after(async () => { await browser?.close(); server?.stop(); });
 
 const id = (name) => `[data-testid="${name}"]`;
 const demo = (file) => path.join(ROOT, 'demo-targets', file);
+
+/** The kiln binary's text report. */
+async function kilnText(args) {
+  const r = spawnSync(path.join(ROOT, 'target', 'debug', 'kiln'), args, { encoding: 'utf8' });
+  assert.equal(r.status, 0, r.stderr);
+  return r.stdout;
+}
 
 async function ready(page) {
   await page.waitForSelector('body[data-ready="true"]', { timeout: 30000 });
@@ -79,6 +87,10 @@ test('the verdict is the engine\'s, warnings stand under it and the notes are fo
   assert.match(meta, /acceptance goal 0\.8/);
   assert.ok(meta.includes(cli.energy_evaluations.toLocaleString('en-US') + ' energy evaluations'), meta);
   assert.deepEqual(errors, []);
+  // The README's picture of the results (docs/results-1280.png is a copy of it).
+  await page.click(id('notes-summary'));
+  await page.evaluate(() => { window.scrollTo(0, 0); });
+  await page.screenshot({ path: path.join(ARTIFACTS, 'readme-results-1280.png') });
   await context.close();
 });
 
@@ -96,8 +108,11 @@ test('a comb of many modes folds its tail into one row that opens', async () => 
   assert.deepEqual(shown, t.shown);
   const fold = page.locator(id('fold-row'));
   assert.equal(await fold.count(), 1);
-  const pct = (100 * t.folded_mass).toFixed(t.folded_mass < 0.001 && t.folded_mass > 0 ? 2 : 1);
-  assert.match(await fold.textContent(), new RegExp(`^\\+?\\s*${t.folded.length} more modes, ${pct.replace('.', '\\.')} % together`));
+  // The folded row's words are the command line's, word for word.
+  const words = (await fold.textContent()).trim();
+  assert.match(words, new RegExp(`^${t.folded.length} more modes, ${fmtShare(t.folded_mass).replace('.', '\\.')} together`));
+  const text = await kilnText(['run', demo('ultrasonic-phase-range-comb.json')]);
+  assert.ok(text.includes('… ' + words + ' (modes '), `${words} in\n${text}`);
   assert.equal(await page.locator(id('folded-mode') + ':visible').count(), 0, 'folded rows are hidden');
   await shot(page, '30-comb-folded');
   await page.click(id('fold-toggle'));
@@ -153,6 +168,8 @@ for (const width of [390, 768, 1280]) {
       assert.deepEqual(small, [], 'controls under 44 px high at 390 px');
     }
     await page.screenshot({ path: path.join(ARTIFACTS, `layout-${width}.png`), fullPage: true });
+    // The README's picture of a phone (docs/phone-390.png is a copy of it).
+    if (width === 390) await page.screenshot({ path: path.join(ARTIFACTS, 'readme-phone-390.png') });
     await context.close();
   });
 }
