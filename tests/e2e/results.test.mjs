@@ -101,6 +101,14 @@ test('a comb of many modes folds its tail into one row that opens', async () => 
   const { page, context } = await openPage(browser);
   await page.goto(server.origin + '/#demo=ultrasonic-phase-range-comb.json');
   await ready(page);
+  // Before a run, the check under the editor orders its modes by Laplace mass and folds the tail too.
+  const check = await kilnJson(['check', demo('ultrasonic-phase-range-comb.json'), '--json']);
+  assert.ok(check.mode_table.folded.length >= 2, 'the check folds a tail');
+  await page.waitForSelector(id('check-folded'), { timeout: 30000 });
+  assert.equal((await page.textContent(id('check-folded'))).trim(),
+    `… ${check.mode_table.folded.length} more modes, ${fmtShare(check.mode_table.folded_mass)} of the Laplace mass together (listed in the results).`);
+  const checkRows = await page.$$eval(id('check-modes') + ' tbody tr td:first-child', (td) => td.map((t) => Number(t.textContent.replace(/\D/g, ''))));
+  assert.deepEqual(checkRows, check.mode_table.shown.slice(0, 30));
   await run(page);
   const rows = page.locator(id('mode-table') + ' tbody tr');
   // The rows shown, in the engine's order (largest mass first), then the folded row.
