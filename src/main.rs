@@ -6,28 +6,119 @@ use kiln::run;
 use std::process::ExitCode;
 
 const USAGE: &str = "\
-kiln: modes, log evidence (log Z) and cross-checks for multimodal densities
+kiln: the modes of a density, its log evidence (log Z) with an honest error bar, and checks
 
-Usage:
-  kiln check SPEC.json [--json]       modes, Laplace log Z, grid log Z (1-2 unknowns), exact answers
-  kiln run SPEC.json [options]        sample: log Z ± SE, mode masses, unknowns, cross-checks
-  kiln compare A.json B.json [options]
-                                      Bayes factor log(Z_A / Z_B) ± SE from two runs
-  kiln bench [--quick] [--json]       Kiln against AIS, parallel tempering, IS and NUTS at equal cost
-  kiln --help | --version
+Commands:
+  kiln check SPEC.json     the modes, the Laplace and grid values of log Z, exact answers
+  kiln run SPEC.json       sample it: a verdict, log Z ± SE, mode masses, the unknowns
+  kiln compare A.json B.json
+                           the log Bayes factor log(Z_A / Z_B) ± SE of two models
+  kiln bench               Kiln against other estimators at equal cost
+  kiln --version
 
-Options of run and compare (they override the spec's \"settings\"):
-  --seed N            random seed (default 1)
-  --chains K          chains (default 4)
-  --draws N           kept draws per chain (default 2000)
-  --warmup N          warm-up iterations per chain (default 1000)
-  --method M          joint | alternating (default alternating)
-  --integrator I      nuts | hmc (default nuts)
-  --json              print one JSON object instead of the report
-  --draws-csv PATH    (run) write resampled target draws as CSV
-  --data FILE.csv     (check, run) use this CSV file (header row naming the columns) as the data
+`kiln COMMAND --help` describes a command and its options.
+Exit codes: 0 success, 2 bad input (the message on standard error says where and what to try).";
 
-Exit codes: 0 success, 2 bad input (the message on standard error says where and how to fix it).";
+/// Options that `run` and `compare` share, with their defaults.
+const SAMPLING_OPTIONS: &str =
+    "  --seed N            random seed (default 1: every run is reproducible)
+  --chains K          chains, 1 to 64 (default 8)
+  --draws N           kept draws per chain (default 1000)
+  --warmup N          warm-up iterations per chain (default 500)
+  --method M          alternating: position moves, then an exact draw of β (default)
+                      joint: β moves with the position
+  --integrator I      nuts: trajectories that stop when they turn back (default)
+                      hmc: trajectories of fixed length
+  --json              print one JSON object instead of the report";
+
+/// What the spec's settings add to the options.
+const SETTINGS_NOTE: &str =
+    "The options override the spec's \"settings\", which also take \"starts\" (optimiser
+starts of the mode search) and \"acceptance_goal\" (the average acceptance of the Hamiltonian
+moves that warm-up tunes the step size to reach, default 0.8).";
+
+const RUN_HELP: &str = "\
+kiln run SPEC.json [options]
+
+Finds the modes, samples the density by continuously tempered Hamiltonian Monte Carlo between
+their Laplace mixture and the density, and reports: the verdict of the independent checks;
+the warnings, each with what to do; log Z ± SE beside every check; the modes by mass; the mode
+search's evidence; the unknowns (median, 90 % interval, mean ± sd, R-hat, effective draws);
+diagnostics; and the notes on what Kiln chose.
+
+Options:
+{SAMPLING}
+  --data FILE.csv     use this CSV file (a header row naming the columns) as the data
+  --draws-csv PATH    also write resampled target draws as CSV (one column per unknown, then
+                      beta, weight, chain, iteration, mode)
+
+{SETTINGS}";
+
+const CHECK_HELP: &str = "\
+kiln check SPEC.json [--data FILE.csv] [--json]
+
+Reads and checks the spec, then reports without sampling: the unknowns and data, the modes
+(location, energy, Laplace mass) by Laplace mass, the Laplace value of log Z, the grid value
+(one or two unknowns), the exact answers of a Gaussian mixture, and the mode search's
+evidence. A bad spec is an error that says where, shows the line and what to try.
+
+Options:
+  --data FILE.csv     use this CSV file (a header row naming the columns) as the data
+  --json              print one JSON object instead of the report";
+
+const COMPARE_HELP: &str = "\
+kiln compare A.json B.json [options]
+
+Runs both specs on the same terms and reports the log Bayes factor log(Z_A / Z_B) ± SE
+(SE = √(SE_A² + SE_B²)) with what it means, both runs' verdicts and mode-search figures, and
+both runs' warnings. When either run's verdict is not \"agree\", the number is reported as
+not to be used, with the reason.
+
+Options:
+{SAMPLING}
+
+{SETTINGS}";
+
+const BENCH_HELP: &str = "\
+kiln bench [--quick] [--json] [--targets a,b] [--methods m,n] [--budgets 2e4,2e5]
+           [--seeds N] [--no-speed]
+
+Measures Kiln against annealed importance sampling (ais), parallel tempering with the
+stepping-stone estimator (pt), importance sampling (is) and plain NUTS (nuts, masses only) at
+equal budgets of energy evaluations on reference targets, and the formula engine's speed. The
+whole benchmark writes its tables to BENCHMARKS.md; a part (any of the options below but
+--quick and --json) only prints.
+
+Options:
+  --quick             fewer budgets and seeds
+  --json              print one JSON object instead of the tables
+  --targets a,b       only these targets: {TARGETS}
+  --methods m,n       only these methods: kiln, ais, pt, is, nuts
+  --budgets 2e4,2e5   only these budgets of energy evaluations (1e3 to 1e9)
+  --seeds N           seeds per target and budget (1 to 1000)
+  --no-speed          leave out the engine's speed";
+
+/// The help of one command (`kiln COMMAND --help`).
+fn command_help(cmd: &str) -> Option<String> {
+    let text = match cmd {
+        "run" => RUN_HELP
+            .replace("{SAMPLING}", SAMPLING_OPTIONS)
+            .replace("{SETTINGS}", SETTINGS_NOTE),
+        "check" => CHECK_HELP.to_string(),
+        "compare" => COMPARE_HELP
+            .replace("{SAMPLING}", SAMPLING_OPTIONS)
+            .replace("{SETTINGS}", SETTINGS_NOTE),
+        "bench" => {
+            let names: Vec<&str> = kiln::bench::targets::targets()
+                .iter()
+                .map(|t| t.name)
+                .collect();
+            BENCH_HELP.replace("{TARGETS}", &names.join(", "))
+        }
+        _ => return None,
+    };
+    Some(text)
+}
 
 fn read_spec(path: &str) -> Result<kiln::Spec, KilnError> {
     let text = std::fs::read_to_string(path).map_err(|e| {
@@ -82,6 +173,7 @@ fn number<T: std::str::FromStr>(flag: &str, v: Option<&String>) -> Result<T, Kil
 
 /// Splits arguments into files and options; `csv` allows --draws-csv, `data` allows --data.
 fn parse_options(
+    cmd: &str,
     args: &[String],
     csv: bool,
     data: bool,
@@ -152,8 +244,8 @@ fn parse_options(
                     "--draws-csv",
                 ];
                 let hint = match kiln::common::error::nearest(s, known) {
-                    Some(k) => format!("did you mean `{k}`? `kiln --help` lists the options"),
-                    None => "`kiln --help` lists the options".to_string(),
+                    Some(k) => format!("did you mean `{k}`? `kiln {cmd} --help` lists the options"),
+                    None => format!("`kiln {cmd} --help` lists the options"),
                 };
                 return Err(KilnError::usage(format!("unknown option `{s}`")).with_hint(hint));
             }
@@ -169,11 +261,21 @@ fn dispatch(args: &[String]) -> Result<String, KilnError> {
         return Err(KilnError::usage("no command given")
             .with_hint("try `kiln check SPEC.json`; `kiln --help` lists the commands"));
     };
+    let wants_help = args[1..].iter().any(|a| a == "--help" || a == "-h");
+    if wants_help {
+        if let Some(h) = command_help(cmd) {
+            return Ok(h);
+        }
+    }
     match cmd.as_str() {
-        "-h" | "--help" | "help" => Ok(USAGE.to_string()),
+        "-h" | "--help" => Ok(USAGE.to_string()),
+        "help" => Ok(args
+            .get(1)
+            .and_then(|c| command_help(c))
+            .unwrap_or_else(|| USAGE.to_string())),
         "-V" | "--version" => Ok(format!("kiln {}", env!("CARGO_PKG_VERSION"))),
         "check" => {
-            let (files, opts) = parse_options(&args[1..], false, true)?;
+            let (files, opts) = parse_options("check", &args[1..], false, true)?;
             if files.len() != 1 {
                 return Err(KilnError::usage("`kiln check` takes exactly one spec file")
                     .with_hint("kiln check SPEC.json [--json]"));
@@ -187,7 +289,7 @@ fn dispatch(args: &[String]) -> Result<String, KilnError> {
             }
         }
         "run" => {
-            let (files, opts) = parse_options(&args[1..], true, true)?;
+            let (files, opts) = parse_options("run", &args[1..], true, true)?;
             if files.len() != 1 {
                 return Err(KilnError::usage("`kiln run` takes exactly one spec file")
                     .with_hint("kiln run SPEC.json [options]"));
@@ -205,7 +307,7 @@ fn dispatch(args: &[String]) -> Result<String, KilnError> {
             }
         }
         "compare" => {
-            let (files, opts) = parse_options(&args[1..], false, false)?;
+            let (files, opts) = parse_options("compare", &args[1..], false, false)?;
             if files.len() != 2 {
                 return Err(
                     KilnError::usage("`kiln compare` takes exactly two spec files")
@@ -223,7 +325,7 @@ fn dispatch(args: &[String]) -> Result<String, KilnError> {
         }
         "bench" => kiln::bench::command(&args[1..]),
         other => {
-            let known = ["check", "run", "compare"];
+            let known = ["check", "run", "compare", "bench"];
             let hint = match kiln::common::error::nearest(other, known) {
                 Some(k) => format!("did you mean `kiln {k}`?"),
                 None => "`kiln --help` lists the commands".to_string(),

@@ -3,8 +3,9 @@
 //!
 //! Each case writes a spec file into its own folder under the system temporary directory, runs
 //! `kiln check` on it and checks what the user sees: exit code exactly 2, a message that names
-//! the fault, the place (`--> energy, line L, column C`, the source line and a caret line) where
-//! the fault is in one place, a `= hint:` line, and never a panic.
+//! the fault on the `problem` line, the place (`where    energy, line L, column C`, the source
+//! line and a marker line of `‾` under the fault) where the fault is in one place, a `try` line,
+//! and never a panic.
 
 use std::fs;
 use std::path::{Path, PathBuf};
@@ -133,8 +134,8 @@ impl Run {
         );
         assert_eq!(self.code, Some(2), "wrong exit code\n{}", self.show());
         assert!(
-            self.stderr.starts_with("error: "),
-            "stderr does not start with `error: `\n{}",
+            self.stderr.starts_with("problem  "),
+            "stderr does not start with `problem  `\n{}",
             self.show()
         );
         assert!(
@@ -155,89 +156,74 @@ impl Run {
         self
     }
 
-    /// The first line, `error: …`, contains `fragment`.
+    /// The first line, `problem  …`, contains `fragment`.
     fn error_line(&self, fragment: &str) -> &Run {
         let first = self.stderr.lines().next().unwrap_or("");
         assert!(
             first.contains(fragment),
-            "the error line lacks {fragment:?}\n{}",
+            "the problem line lacks {fragment:?}\n{}",
             self.show()
         );
         self
     }
 
-    /// A `= hint:` line containing `fragment`.
+    /// A `try` line (the suggestion) containing `fragment`.
     fn hint(&self, fragment: &str) -> &Run {
         let ok = self
             .stderr
             .lines()
-            .any(|l| l.trim_start().starts_with("= hint:") && l.contains(fragment));
-        assert!(
-            ok,
-            "no `= hint:` line containing {fragment:?}\n{}",
-            self.show()
-        );
+            .any(|l| l.starts_with("try      ") && l.contains(fragment));
+        assert!(ok, "no `try` line containing {fragment:?}\n{}", self.show());
         self
     }
 
-    /// Some `= hint:` line.
+    /// Some `try` line.
     fn any_hint(&self) -> &Run {
-        let ok = self
-            .stderr
-            .lines()
-            .any(|l| l.trim_start().starts_with("= hint:"));
-        assert!(ok, "no `= hint:` line\n{}", self.show());
+        let ok = self.stderr.lines().any(|l| l.starts_with("try      "));
+        assert!(ok, "no `try` line\n{}", self.show());
         self
     }
 
     /// No location: the fault is not in one place of the text.
     fn unlocated(&self) -> &Run {
         assert!(
-            !self.stderr.contains("-->"),
+            !self.stderr.lines().any(|l| l.starts_with("where ")),
             "unexpected location\n{}",
             self.show()
         );
         self
     }
 
-    /// The location block: `--> SOURCE, line L, column C`, then ` |`, then `L | text` with
-    /// `line_text`, then a caret line whose first `^` sits under column C; returns the carets.
+    /// The location block: `where    SOURCE, line L, column C`, then the source line indented
+    /// by nine columns (its text `line_text`), then a marker line whose first `‾` sits under
+    /// column C; returns the marker's width.
     fn located(&self, source: &str, line: usize, column: usize, line_text: Option<&str>) -> usize {
         let lines: Vec<&str> = self.stderr.lines().collect();
-        let arrow = format!("--> {source}, line {line}, column {column}");
-        let Some(i) = lines.iter().position(|l| l.trim_start() == arrow) else {
-            panic!("no line `{arrow}`\n{}", self.show());
+        let place = format!("where    {source}, line {line}, column {column}");
+        let Some(i) = lines.iter().position(|l| *l == place) else {
+            panic!("no line `{place}`\n{}", self.show());
         };
         assert!(
-            lines.len() > i + 3,
+            lines.len() > i + 2,
             "the location block is cut short\n{}",
             self.show()
         );
-        let number = line.to_string();
-        let pad = " ".repeat(number.len());
-        assert_eq!(
-            lines[i + 1],
-            format!("{pad} |"),
-            "bad gutter line\n{}",
-            self.show()
-        );
-        let src_prefix = format!("{number} | ");
+        let pad = " ".repeat(9);
         assert!(
-            lines[i + 2].starts_with(&src_prefix),
+            lines[i + 1].starts_with(&pad),
             "bad source line\n{}",
             self.show()
         );
-        let shown = &lines[i + 2][src_prefix.len()..];
+        let shown = &lines[i + 1][pad.len()..];
         if let Some(t) = line_text {
             assert_eq!(shown, t, "the wrong source line is shown\n{}", self.show());
         }
-        let caret_prefix = format!("{pad} | ");
         assert!(
-            lines[i + 3].starts_with(&caret_prefix),
-            "bad caret line\n{}",
+            lines[i + 2].starts_with(&pad),
+            "bad marker line\n{}",
             self.show()
         );
-        let under = &lines[i + 3][caret_prefix.len()..];
+        let under = &lines[i + 2][pad.len()..];
         let lead = under
             .chars()
             .take_while(|c| *c == ' ' || *c == '\t')
@@ -245,18 +231,18 @@ impl Run {
         assert_eq!(
             lead + 1,
             column,
-            "the caret is not under column {column}\n{}",
+            "the marker is not under column {column}\n{}",
             self.show()
         );
-        let carets = under.chars().skip(lead).take_while(|c| *c == '^').count();
-        assert!(carets >= 1, "no caret\n{}", self.show());
+        let marks = under.chars().skip(lead).take_while(|c| *c == '‾').count();
+        assert!(marks >= 1, "no marker\n{}", self.show());
         assert_eq!(
-            under.chars().skip(lead + carets).count(),
+            under.chars().skip(lead + marks).count(),
             0,
-            "junk after the carets\n{}",
+            "junk after the marker\n{}",
             self.show()
         );
-        carets
+        marks
     }
 
     /// Located in the energy formula at `line`, `column`, with `width` carets.
@@ -274,17 +260,11 @@ impl Run {
 
     /// Located in the spec file on `line`, at any column.
     fn at_json_line(&self, line: usize) -> &Run {
-        let prefix = format!("--> spec.json, line {line}, column ");
-        let Some(l) = self
-            .stderr
-            .lines()
-            .find(|l| l.trim_start().starts_with(&prefix))
-        else {
+        let prefix = format!("where    spec.json, line {line}, column ");
+        let Some(l) = self.stderr.lines().find(|l| l.starts_with(&prefix)) else {
             panic!("no location on line {line} of spec.json\n{}", self.show());
         };
-        let column: usize = l.trim_start()[prefix.len()..]
-            .parse()
-            .expect("a column number");
+        let column: usize = l[prefix.len()..].parse().expect("a column number");
         self.located("spec.json", line, column, None);
         self
     }

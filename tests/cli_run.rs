@@ -63,7 +63,7 @@ fn run_json_has_the_documented_fields_and_settings_apply() {
         "diagnostics",
         "warnings",
         "seed",
-        "gradient_evaluations",
+        "energy_evaluations",
     ] {
         assert!(v.get(key).is_some(), "missing `{key}`");
     }

@@ -31,7 +31,7 @@ fn every_bad_input_is_a_clear_error_and_the_objects_are_recorded() {
         );
         if let Some(loc) = &err.location {
             assert!(loc.line >= 1 && loc.column >= 1, "{name}");
-            assert!(err.render().contains('^'), "{name}");
+            assert!(err.render().contains('‾'), "{name}");
         }
         // The command line: exit code 2 and the same message on standard error, never a panic.
         let file = std::env::temp_dir().join(format!(

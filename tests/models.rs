@@ -80,7 +80,8 @@ fn the_hierarchical_gauge_demo_gives_the_multivariate_normal_evidence() {
         ["mu", "theta[1]", "theta[2]", "theta[3]", "theta[4]", "theta[5]", "theta[6]"]
     );
     assert_eq!(r["unknowns"][3]["prior"], "normal(mu, 0.6)");
-    assert!(r["notes"][0]
+    assert_eq!(r["notes"][0]["code"], "priors_used");
+    assert!(r["notes"][0]["sentence"]
         .as_str()
         .unwrap()
         .contains("`theta[1]`…`theta[6]` normal(mu, 0.6)"));
@@ -208,7 +209,7 @@ fn bad_index_columns_and_data_are_reported_with_the_row_and_column() {
         err.contains("data row 2 (line 3), column `g`: `x` is not a number"),
         "{err}"
     );
-    assert!(err.contains("--> data, line 3, column 3"), "{err}");
+    assert!(err.contains("where    data, line 3, column 3"), "{err}");
     let good = temp("good.json", &spec(r#"{"y": [1], "g": [1]}"#));
     let csv = temp("obs.csv", "\u{feff}y;g\r\n1.5;1\r\n2.5;\"3\"\r\n0.5;2\r\n");
     let (code, out, err) = kiln(&["check", &good, "--data", &csv, "--json"]);
@@ -235,5 +236,8 @@ fn a_prior_with_a_bad_constant_is_reported_before_any_run_at_its_place() {
         err.contains("the rate `rate` of logd_gamma must be positive; here it is -1"),
         "{err}"
     );
-    assert!(err.contains("--> prior of `s`, line 1, column 10"), "{err}");
+    assert!(
+        err.contains("where    prior of `s`, line 1, column 10"),
+        "{err}"
+    );
 }

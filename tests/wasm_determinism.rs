@@ -91,7 +91,7 @@ fn bad_inputs_give_the_same_error_objects_as_native() {
         assert!(
             got["rendered"]
                 .as_str()
-                .is_some_and(|r| r.starts_with("error: ")),
+                .is_some_and(|r| r.starts_with("problem  ")),
             "{name}"
         );
     }

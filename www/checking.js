@@ -10,8 +10,8 @@ import { ensureGrid } from './grid.js';
 import { scheduleRender } from './render-loop.js';
 import { $, el, append, clear } from './dom.js';
 import { isNum } from './numbers.js';
-import { fmtSig, fmtFixed, fmtDuration } from './format.js';
-import { warnList, colourSwatches } from './widgets.js';
+import { fmtSig, fmtFixed, fmtShare, fmtDuration } from './format.js';
+import { warnList, messageItems, colourSwatches } from './widgets.js';
 
 let firstCheckResolve = null;
 /** Resolves once the first check (of any slot) has an answer. */
@@ -107,7 +107,14 @@ export function renderCheck() {
     const head = el('tr', null, el('th', { scope: 'col' }, '#'),
       wide ? el('th', { scope: 'col' }, 'location') : names.map(function (n) { return el('th', { scope: 'col', class: 'num' }, n); }),
       el('th', { scope: 'col', class: 'num' }, 'energy'), el('th', { scope: 'col', class: 'num' }, 'Laplace mass'));
-    const body = modes.slice(0, 30).map(function (m, k) {
+    // The engine's order (largest Laplace mass first); the tiny tail is one line under it.
+    const t = r.mode_table;
+    const valid = t && Array.isArray(t.shown) && Array.isArray(t.folded) && t.shown.length + t.folded.length === modes.length &&
+      t.shown.concat(t.folded).every(function (k) { return Number.isInteger(k) && k >= 1 && k <= modes.length; });
+    const shown = valid ? t.shown : modes.map(function (_, k) { return k + 1; });
+    const body = shown.slice(0, 30).map(function (n) {
+      const k = n - 1;
+      const m = modes[k];
       const loc = Array.isArray(m.location) ? m.location : [];
       return el('tr', null,
         el('td', null, el('span', { class: 'swatch', 'aria-hidden': 'true', dataset: { mode: String(k + 1) } }), String(k + 1), m.non_quadratic ? el('span', { class: 'flag', title: 'measured to be far from Gaussian' }, ' *') : null),
@@ -118,11 +125,12 @@ export function renderCheck() {
     });
     const table = el('table', { class: 'data-table' }, el('caption', null, 'Modes found by the optimiser'), el('thead', null, head), el('tbody', null, body));
     append(modesNode, el('div', { class: 'table-scroll' }, table));
-    if (modes.length > 30) append(modesNode, el('p', { class: 'hint' }, '… and ' + (modes.length - 30) + ' more (all are in the results).'));
+    if (shown.length > 30) append(modesNode, el('p', { class: 'hint' }, '… and ' + (shown.length - 30) + ' more (all are in the results).'));
+    if (valid && t.folded.length) append(modesNode, el('p', { class: 'hint', 'data-testid': 'check-folded' }, '… ' + t.folded.length + ' more modes, ' + fmtShare(t.folded_mass) + ' of the Laplace mass together (listed in the results).'));
     if (modes.some(function (m) { return m.non_quadratic; })) append(modesNode, el('p', { class: 'hint' }, '* measured to be far from Gaussian: the Laplace value is unreliable for it.'));
     colourSwatches(modesNode);
   }
-  const warns = (Array.isArray(r.warnings) ? r.warnings : []).concat(r.grid && Array.isArray(r.grid.warnings) ? r.grid.warnings : []);
-  // The statement of the spec's priors is a note, not a warning.
-  if (warns.length) append(modesNode, warnList(warns.map(function (w) { return { text: w, kind: /^priors from the spec/.test(w) ? 'note' : 'warning' }; })));
+  // The check's warnings (the grid's among them); its notes are in the results pane's fold.
+  const warns = messageItems(r.warnings, 'warning');
+  if (warns.length) append(modesNode, warnList(warns));
 }

@@ -1,6 +1,6 @@
 // Numbers and engine text as the page shows them.
 //
-// Owns: str, sentence, messageOf, fmtSig, fmtFixed, fmtPM, fmtInt, fmtPct, fmtDuration.
+// Owns: str, sentence, messageOf, fmtSig, fmtFixed, fmtPM, fmtInt, fmtPct, fmtShare, fmtDuration.
 // Numbers use the ASCII hyphen-minus so that they copy into other tools intact (the plots'
 // tick labels, drawn on canvas, use the typographic minus instead; see plots.js).
 // Must not touch: the DOM, the page state or the engine (pure; unit-tested under Node).
@@ -62,6 +62,19 @@ export function fmtInt(v) {
 /** A share as a percentage (two decimals below 0.1 %). */
 export function fmtPct(v) {
   return isNum(v) ? (v * 100).toFixed(v < 0.001 && v > 0 ? 2 : 1) + ' %' : fmtSig(v);
+}
+
+/**
+ * A share of the mass as the command line writes it (common::format::share): two significant
+ * digits below 10 %, whole percents above, never rounded to zero ('< 0.001 %').
+ */
+export function fmtShare(v) {
+  if (!isNum(v)) return fmtSig(v);
+  const p = 100 * v;
+  if (p === 0) return '0 %';
+  if (Math.abs(p) < 1e-3) return '< 0.001 %';
+  const digits = Math.min(4, Math.max(0, 1 - Math.floor(Math.log10(Math.abs(p)))));
+  return p.toFixed(digits) + ' %';
 }
 
 /** Milliseconds in words: 'under a second', '42 s', '3 min 5 s'. */

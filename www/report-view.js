@@ -1,14 +1,17 @@
 // The results pane for the active slot: title and meta line, stale note, run error, verdict,
-// log Z and the cross-checks, warnings, modes, unknowns, diagnostics and the printed model.
+// the warnings under it (notes folded), log Z and the cross-checks, modes (the engine's order,
+// the tiny tail folded into one row), unknowns (the engine's summary), diagnostics and the
+// printed model.
 //
-// Owns: renderReport, verdictOf (the engine's typed verdict). Engine text is shown as text only.
+// Owns: renderReport, verdictOf (the engine's typed verdict), coverageText, whether a folded
+// mode row is open. Engine text is shown as text only; the page orders nothing itself.
 // Must not touch: the state (it only reads it), the editor, the plots (plots-view.js).
 import { state, activeSlot, unknownNames } from './state.js';
 import { runIsStale } from './runs.js';
 import { isNum } from './numbers.js';
-import { str, sentence, fmtSig, fmtFixed, fmtPM, fmtInt, fmtPct, fmtDuration } from './format.js';
+import { str, sentence, fmtSig, fmtFixed, fmtPM, fmtInt, fmtPct, fmtShare, fmtDuration } from './format.js';
 import { $, el, append, clear, setChildren } from './dom.js';
-import { warnList, colourSwatches } from './widgets.js';
+import { warnList, messageItems, colourSwatches } from './widgets.js';
 
 /**
  * The engine's typed verdict of a run: {state: 'agree' | 'disagree' | 'not_enough_evidence',
@@ -48,8 +51,11 @@ export function renderReport() {
   let meta;
   if (r) {
     const s = r.settings || {};
-    meta = 'Seed ' + str(r.seed != null ? r.seed : s.seed) + ' · ' + s.chains + ' chains × ' + fmtInt(s.draws) + ' kept draws after ' + fmtInt(s.warmup) + ' warm-up · ' + s.method + ' method, ' + (s.integrator === 'hmc' ? 'static HMC' : 'NUTS') +
-      (isNum(r.gradient_evaluations) ? ' · ' + fmtInt(r.gradient_evaluations) + ' energy evaluations' : '') + ' · ' + fmtDuration(run.elapsed);
+    meta = 'Seed ' + str(r.seed != null ? r.seed : s.seed) + ' · ' + s.chains + ' chains × (' + fmtInt(s.warmup) + ' warm-up + ' + fmtInt(s.draws) + ' kept draws) · ' +
+      (s.method === 'joint' ? 'β moves with the position' : 'position moves, then an exact draw of β') + ' · ' +
+      (s.integrator === 'hmc' ? 'trajectories of fixed length' : 'trajectories that stop when they turn back') +
+      (isNum(s.acceptance_goal) ? ' · acceptance goal ' + str(s.acceptance_goal) : '') +
+      (isNum(r.energy_evaluations) ? ' · ' + fmtInt(r.energy_evaluations) + ' energy evaluations' : '') + ' · ' + fmtDuration(run.elapsed);
   } else if (run && run.status === 'running') meta = 'Running… numbers below update as draws arrive.';
   else if (run && run.status === 'cancelled') meta = 'The last run was cancelled.';
   else if (slot.check && slot.check.error) meta = 'Not run yet: the model has a problem, shown under the editor.';
@@ -91,8 +97,10 @@ export function renderReport() {
 
 function emptyResults(msg) {
   $('logz-value').textContent = msg; $('logz-sub').textContent = '';
-  clear($('cross-checks').tBodies[0]); clear($('warnings')); clear($('mode-table').tHead); clear($('mode-table').tBodies[0]);
-  clear($('unknowns-summary').tBodies[0]); clear($('diagnostics')); $('modes-foot').textContent = '';
+  clear($('cross-checks').tBodies[0]); clear($('warnings')); clear($('notes')); $('notes-fold').hidden = true;
+  clear($('mode-table').tHead); clear($('mode-table').tBodies[0]); $('modes-caption').textContent = '';
+  clear($('unknowns-summary').tHead); clear($('unknowns-summary').tBodies[0]); $('unknowns-caption').textContent = '';
+  clear($('diagnostics')); $('modes-foot').textContent = '';
   $('dl-csv').disabled = true; $('dl-json').disabled = true;
 }
 
@@ -142,23 +150,42 @@ function renderLogZ(slot, r, check) {
   append(tb, rows);
 }
 
+// Warnings (what to act on, each with what to do) in the card under the verdict; notes (what
+// Kiln chose and why) in a fold after them, closed unless the reader opened it.
 function renderWarnings(slot, r, check) {
   const node = $('warnings');
-  clear(node);
+  const notesNode = $('notes');
+  clear(node); clear(notesNode);
   const items = [];
+  let notes = [];
   const run = slot.run;
-  if (run && run.status === 'cancelled') items.push({ kind: 'warning', text: 'The run was cancelled before it finished; nothing below is a final result.' });
+  if (run && run.status === 'cancelled') items.push({ kind: 'warning', text: 'the run was cancelled before it finished; nothing below is a final result', remedy: 'run the model again and let it finish' });
   if (r) {
-    for (const w of (Array.isArray(r.warnings) ? r.warnings : [])) items.push({ kind: 'warning', text: w });
-    for (const n of (Array.isArray(r.notes) ? r.notes : [])) items.push({ kind: 'note', text: n });
+    items.push(...messageItems(r.warnings, 'warning'));
+    notes = messageItems(r.notes, 'note');
   } else if (slot.check && slot.check.error) {
-    items.push({ kind: 'warning', text: 'The model cannot be used yet: ' + (slot.check.error.message || 'see the message under the editor') + '.', source: slot.check.local ? 'Form:' : 'Check:' });
+    items.push({ kind: 'warning', text: 'the model cannot be used yet: ' + (slot.check.error.message || 'see the message under the editor'), remedy: 'correct the model as the message under the editor says', source: slot.check.local ? 'Form:' : 'Check:' });
   } else if (check) {
-    for (const w of (Array.isArray(check.warnings) ? check.warnings : [])) items.push({ kind: 'warning', text: w, source: 'Check:' });
-    if (check.grid && Array.isArray(check.grid.warnings)) for (const w of check.grid.warnings) items.push({ kind: 'warning', text: w, source: 'Grid:' });
+    items.push(...messageItems(check.warnings, 'warning', 'Check:'));
+    notes = messageItems(check.notes, 'note', 'Check:');
   }
-  if (!items.length) append(node, el('p', { class: 'muted' }, r ? 'No warnings: nothing in the diagnostics suggests a problem.' : (run && run.status === 'running' ? 'Warnings appear when the run finishes.' : 'No warnings from the check. A run adds its own diagnostics.')));
+  $('act-card').classList.toggle('calm', !items.length);
+  if (!items.length) append(node, el('p', { class: 'muted', 'data-testid': 'no-warnings' }, r ? 'No warnings: nothing in the diagnostics calls for action.' : (run && run.status === 'running' ? 'Warnings appear when the run finishes.' : 'No warnings from the check. A run adds its own diagnostics.')));
   else append(node, warnList(items));
+  const fold = $('notes-fold');
+  fold.hidden = !notes.length;
+  $('notes-summary').textContent = 'What Kiln chose, and why (' + (notes.length === 1 ? '1 note' : notes.length + ' notes') + ')';
+  if (notes.length) append(notesNode, warnList(notes));
+}
+
+// The mode table whose folded row the reader opened (kept across re-renders of the same result).
+let openFold = null;
+
+/** The engine's row order: {shown, folded} (1-based mode numbers); every mode, by number, without one. */
+function tableOrder(t, n) {
+  const ok = (a) => Array.isArray(a) && a.every(function (k) { return Number.isInteger(k) && k >= 1 && k <= n; });
+  if (t && ok(t.shown) && ok(t.folded) && t.shown.length + t.folded.length === n) return t;
+  return { shown: Array.from({ length: n }, function (_, k) { return k + 1; }), folded: [], folded_mass: 0, folded_not_visited: 0 };
 }
 
 function renderModes(slot, r, check) {
@@ -169,6 +196,8 @@ function renderModes(slot, r, check) {
   clear(table.tHead); clear(table.tBodies[0]);
   const modes = r && Array.isArray(r.modes) ? r.modes : (check && Array.isArray(check.modes) ? check.modes : []);
   const exact = r && Array.isArray(r.exact_masses) ? r.exact_masses : (check && check.exact && Array.isArray(check.exact.masses) && !r ? check.exact.masses : null);
+  const tbl = r ? r.mode_table : check && check.mode_table;
+  const order = tableOrder(tbl, modes.length);
   const head = [el('th', { scope: 'col' }, 'Mode')];
   if (wide) head.push(el('th', { scope: 'col' }, 'location'));
   else for (const n of names) head.push(el('th', { scope: 'col', class: 'num' }, n));
@@ -178,9 +207,10 @@ function renderModes(slot, r, check) {
   if (exact) head.push(el('th', { scope: 'col', class: 'num' }, 'exact mass'));
   if (r) { head.push(el('th', { scope: 'col' }, 'visited')); head.push(el('th', { scope: 'col' }, 'found by')); }
   append(table.tHead, el('tr', null, head));
-  const body = modes.slice(0, 200).map(function (m, k) {
+  function row(k, folded) {
+    const m = modes[k - 1];
     const loc = Array.isArray(m.location) ? m.location : [];
-    const cells = [el('th', { scope: 'row' }, el('span', { class: 'swatch', 'aria-hidden': 'true', dataset: { mode: String(k + 1) } }), String(k + 1),
+    const cells = [el('th', { scope: 'row' }, el('span', { class: 'swatch', 'aria-hidden': 'true', dataset: { mode: String(k) } }), String(k),
       m.found_by === 'chains' ? el('span', { title: 'found by the chains, missed by the mode search' }, ' +') : null,
       m.non_quadratic ? el('span', { class: 'flag', title: 'measured to be far from Gaussian' }, ' *') : null)];
     if (wide) cells.push(el('td', { class: 'note' }, loc.map(function (v, i) { return (names[i] || '?') + ' = ' + fmtSig(v); }).join(', ')));
@@ -188,21 +218,34 @@ function renderModes(slot, r, check) {
     if (r) cells.push(el('td', { class: 'num' }, m.visited && isNum(m.mass_se) ? fmtPM(m.mass, m.mass_se) : 'not visited'));
     else cells.push(el('td', { class: 'num' }, fmtSig(m.energy, 5)));
     cells.push(el('td', { class: 'num' }, fmtSig(m.laplace_mass, 3)));
-    if (exact) cells.push(el('td', { class: 'num' }, fmtSig(exact[k], 4)));
+    if (exact) cells.push(el('td', { class: 'num' }, fmtSig(exact[k - 1], 4)));
     if (r) {
       cells.push(el('td', null, m.visited ? el('span', { class: 'pill yes' }, 'yes') : el('span', { class: 'pill no' }, 'no')));
       cells.push(el('td', null, FOUND_BY[m.found_by] || str(m.found_by || '—')));
     }
-    return el('tr', null, cells);
-  });
+    return el('tr', folded ? { class: 'folded', 'data-testid': 'folded-mode', hidden: openFold !== tbl } : null, cells);
+  }
+  const body = order.shown.slice(0, 200).map(function (k) { return row(k, false); });
+  if (order.folded.length) {
+    const n = order.folded.length;
+    const nv = order.folded_not_visited || 0;
+    const open = openFold === tbl;
+    const label = n + ' more modes, ' + fmtShare(order.folded_mass) + ' together' + (nv === n ? ', none visited' : nv ? ', ' + nv + ' of them not visited' : '');
+    body.push(el('tr', { class: 'fold-row', 'data-testid': 'fold-row' }, el('td', { colspan: head.length },
+      el('button', {
+        type: 'button', class: 'link-button fold-toggle', 'aria-expanded': open ? 'true' : 'false', 'data-testid': 'fold-toggle',
+        onclick: function () { openFold = openFold === tbl ? null : tbl; renderModes(slot, r, check); },
+      }, label))));
+    for (const k of order.folded.slice(0, 200)) body.push(row(k, true));
+  }
   if (!body.length) body.push(el('tr', null, el('td', { colspan: head.length, class: 'empty' }, slot.check && slot.check.pending ? 'Checking…' : 'No modes yet: the model has not been checked successfully.')));
   append(table.tBodies[0], body);
   colourSwatches(table);
-  const foot = [];
-  if (modes.length > 200) foot.push('Showing the first 200 of ' + modes.length + ' modes; the JSON summary has them all.');
-  if (r) foot.push('Mass is the share of Z in each mode from the sampler; the Laplace mass comes from the Gaussian approximations alone. “+” marks a mode the chains found that the mode search had missed; a mode not visited got no draws, so its mass is not estimated.');
   const cov = (r && r.mode_coverage) || (check && check.mode_coverage);
-  if (cov) foot.push(coverageText(cov));
+  $('modes-caption').textContent = modes.length ? (r ? 'Largest mass first. ' : 'Largest Laplace mass first. ') + (cov ? coverageText(cov) : '') : '';
+  const foot = [];
+  if (order.shown.length > 200 || order.folded.length > 200) foot.push('Showing at most 200 rows of each part; the JSON summary has every mode.');
+  if (r) foot.push('Mass is the share of Z in each mode from the sampler; the Laplace mass comes from the Gaussian approximations alone. “+” marks a mode the chains found that the mode search had missed; a mode not visited got no draws, so its mass is not estimated.' + (order.folded.length ? ' Modes that together hold under 0.1 % share one row; open it to see them.' : ''));
   else if (modes.length) foot.push('Modes from the optimiser. Energy is the value at the mode; run the model to weigh them by sampling.');
   $('modes-foot').textContent = foot.join(' ');
 }
@@ -216,22 +259,31 @@ export function coverageText(c) {
   return parts.join(' ');
 }
 
+// The engine's unknowns summary (run::digest): unknown | prior | median | interval | mean ± sd |
+// R-hat | effective draws, the prior column only when a prior was given, the level stated.
 function renderUnknowns(slot, r) {
-  const tb = $('unknowns-summary').tBodies[0];
-  clear(tb);
-  if (!r) { append(tb, el('tr', null, el('td', { colspan: 8, class: 'empty' }, 'Run the model to summarise the unknowns.'))); return; }
-  const names = unknownNames(slot);
-  names.forEach(function (n, i) {
-    const q = Array.isArray(r.quantiles) && Array.isArray(r.quantiles[i]) ? r.quantiles[i] : [];
-    const rh = r.rhat ? r.rhat[i] : null;
-    const ess = r.ess ? r.ess[i] : null;
-    const u = r.unknowns && r.unknowns[i];
-    const bounds = u && (isNum(u.lower) || isNum(u.upper)) ? ' (' + (isNum(u.lower) ? fmtSig(u.lower) : '−∞') + ' to ' + (isNum(u.upper) ? fmtSig(u.upper) : '∞') + ')' : '';
+  const table = $('unknowns-summary');
+  const tb = table.tBodies[0];
+  clear(table.tHead); clear(tb);
+  const sum = r && r.unknowns_summary && Array.isArray(r.unknowns_summary.rows) ? r.unknowns_summary : null;
+  const level = sum && isNum(sum.interval_level) ? sum.interval_level : 0.9;
+  const pct = str(Number((100 * level).toPrecision(4)));
+  const priors = sum ? sum.rows.some(function (u) { return u.prior != null; }) : false;
+  const cols = ['unknown'].concat(priors ? ['prior'] : [], ['median', pct + ' % interval', 'mean ± sd', 'R-hat', 'effective draws']);
+  append(table.tHead, el('tr', null, cols.map(function (c, i) { return el('th', { scope: 'col', class: i === 0 || c === 'prior' ? null : 'num' }, c); })));
+  $('unknowns-caption').textContent = sum ? 'Target draws weighted by p(β = 1 | x); the interval holds the central ' + pct + ' % of the mass.' : '';
+  if (!sum) { append(tb, el('tr', null, el('td', { colspan: cols.length, class: 'empty' }, 'Run the model to summarise the unknowns.'))); return; }
+  sum.rows.forEach(function (u, i) {
+    const info = r.unknowns && r.unknowns[i];
+    const bounds = info && (isNum(info.lower) || isNum(info.upper)) ? ' (' + (isNum(info.lower) ? fmtSig(info.lower) : '−∞') + ' to ' + (isNum(info.upper) ? fmtSig(info.upper) : '∞') + ')' : '';
+    const iv = Array.isArray(u.interval) ? u.interval : [];
+    const rh = u.rhat, ess = u.effective_draws;
     append(tb, el('tr', null,
-      el('th', { scope: 'row' }, n, bounds ? el('span', { class: 'muted' }, bounds) : null),
-      el('td', { class: 'num' }, fmtSig(r.mean && r.mean[i])),
-      el('td', { class: 'num' }, fmtSig(r.sd && r.sd[i])),
-      el('td', { class: 'num' }, fmtSig(q[0])), el('td', { class: 'num' }, fmtSig(q[1])), el('td', { class: 'num' }, fmtSig(q[2])),
+      el('th', { scope: 'row' }, str(u.name), bounds ? el('span', { class: 'muted' }, bounds) : null),
+      priors ? el('td', { class: 'code' }, u.prior == null ? '—' : str(u.prior)) : null,
+      el('td', { class: 'num' }, fmtSig(u.median)),
+      el('td', { class: 'num' }, fmtSig(iv[0]) + ' to ' + fmtSig(iv[1])),
+      el('td', { class: 'num' }, fmtSig(u.mean) + ' ± ' + fmtSig(u.sd)),
       el('td', { class: 'num' + (isNum(rh) && rh > 1.01 ? ' flag' : ''), title: isNum(rh) && rh > 1.01 ? 'above 1.01: the chains disagree' : null }, isNum(rh) ? rh.toFixed(3) : fmtSig(rh)),
       el('td', { class: 'num' + (isNum(ess) && ess < 100 ? ' flag' : '') }, fmtInt(ess))));
   });
@@ -239,7 +291,7 @@ function renderUnknowns(slot, r) {
 
 // [key in result.diagnostics, label, value -> [text, explanation or null, flagged]].
 const DIAG = [
-  ['acceptance', 'Mean acceptance', function (v, r) { return [fmtFixed(v, 3), 'target ' + str((r.settings || {}).target_accept || 0.8)]; }],
+  ['acceptance', 'Mean acceptance', function (v, r) { return [fmtFixed(v, 3), 'goal ' + str((r.settings || {}).acceptance_goal || 0.8)]; }],
   ['divergences', 'Divergent transitions', function (v) { return [fmtInt(v), v > 0 ? 'the integrator broke down in places; results near those regions are suspect' : null, v > 0]; }],
   ['max_depth_hits', 'Trajectories stopped at the tree-depth limit', function (v) { return [fmtInt(v), null, v > 0]; }],
   ['independence_acceptance', 'Acceptance of independence moves from the base', function (v) { return [fmtPct(v)]; }],
@@ -276,7 +328,7 @@ function renderDiagnostics(r) {
     const v = d[k];
     row(k.replace(/_/g, ' '), Array.isArray(v) ? v.map(function (x) { return fmtSig(x); }).join(', ') : (typeof v === 'object' && v !== null ? JSON.stringify(v) : fmtSig(v)));
   }
-  if (isNum(r.gradient_evaluations)) row('Energy evaluations (with or without gradient)', fmtInt(r.gradient_evaluations));
+  if (isNum(r.energy_evaluations)) row('Energy evaluations (with or without gradient)', fmtInt(r.energy_evaluations));
 }
 
 // The model as text, for the printed report.

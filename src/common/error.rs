@@ -1,7 +1,7 @@
 //! Errors that reach the user.
 //!
-//! Owns: the one error type of the crate, [`KilnError`], and its rendering in the style of a
-//! compiler diagnostic (the offending source line with a caret under the fault, then a hint).
+//! Owns: the one error type of the crate, [`KilnError`], and its rendering as a labelled record
+//! (`problem`, `where` with the source line and a marker under the fault, `try`).
 //! Every stage returns `Result<_, KilnError>`; nothing in the crate panics on user input.
 //! Must not: decide what is an error (the stages do that) or print anything itself.
 
@@ -125,56 +125,98 @@ impl KilnError {
         self
     }
 
-    /// The diagnostic as several lines of plain text.
+    /// The error as a small labelled record of plain text, the same on the command line and in
+    /// the page:
+    ///
+    /// ```text
+    /// problem  unknown function `lgama`
+    /// where    energy, line 2, column 3
+    ///            lgama(k + 1) - k * log(rate)
+    ///            ‾‾‾‾‾
+    /// try      did you mean `lgamma`?
+    /// ```
+    ///
+    /// Each label sits in a column of [`LABEL_WIDTH`] characters; the source line follows the
+    /// `where` line, indented by the same column, and the marker line under it overlines the
+    /// faulty characters with `‾`. A long line is shown as a window around the fault.
     pub fn render(&self) -> String {
-        let mut out = format!("error: {}\n", self.message);
+        let mut out = labelled("problem", &self.message);
         if let Some(loc) = &self.location {
-            let number = loc.line.to_string();
-            let pad = " ".repeat(number.len());
-            out.push_str(&format!(
-                "{pad}--> {}, line {}, column {}\n",
-                loc.source, loc.line, loc.column
+            out.push_str(&labelled(
+                "where",
+                &format!("{}, line {}, column {}", loc.source, loc.line, loc.column),
             ));
-            out.push_str(&format!("{pad} |\n"));
-            // Long lines are shown as a window around the caret.
-            const WINDOW: usize = 70;
-            const WHOLE: usize = 160;
-            let chars: Vec<char> = loc.line_text.chars().collect();
-            let col = (loc.column - 1).min(chars.len());
-            let long = chars.len() > WHOLE;
-            let from = if long { col.saturating_sub(WINDOW) } else { 0 };
-            let width = if long {
-                loc.width.min(WINDOW)
-            } else {
-                loc.width
-            };
-            let to = if long {
-                (col + width + WINDOW).min(chars.len())
-            } else {
-                chars.len()
-            };
-            let mut shown: String = chars[from..to].iter().collect();
-            let mut lead_chars: Vec<char> = chars[from..col].to_vec();
-            if from > 0 {
-                shown.insert(0, '…');
-                lead_chars.insert(0, ' ');
-            }
-            if to < chars.len() {
-                shown.push('…');
-            }
-            out.push_str(&format!("{number} | {shown}\n"));
-            // Tabs in the line keep their width under the caret.
-            let lead: String = lead_chars
-                .iter()
-                .map(|&c| if c == '\t' { '\t' } else { ' ' })
-                .collect();
-            out.push_str(&format!("{pad} | {lead}{}\n", "^".repeat(width)));
+            let (shown, lead, width) = window(loc);
+            let pad = " ".repeat(LABEL_WIDTH);
+            out.push_str(&format!("{pad}{shown}\n"));
+            out.push_str(&format!(
+                "{pad}{lead}{}\n",
+                MARKER.to_string().repeat(width)
+            ));
         }
         if let Some(hint) = &self.hint {
-            out.push_str(&format!("  = hint: {hint}\n"));
+            out.push_str(&labelled("try", hint));
         }
         out
     }
+}
+
+/// Width of the label column of a rendered error (`problem`, `where`, `try`).
+pub const LABEL_WIDTH: usize = 9;
+/// The character that marks the fault, under the source line.
+pub const MARKER: char = '‾';
+
+/// `label` padded to the label column, then `text`; further lines of `text` are indented.
+fn labelled(label: &str, text: &str) -> String {
+    let pad = " ".repeat(LABEL_WIDTH);
+    let mut out = String::new();
+    for (i, line) in text.lines().enumerate() {
+        if i == 0 {
+            out.push_str(&format!("{label:<LABEL_WIDTH$}{line}\n"));
+        } else {
+            out.push_str(&format!("{pad}{line}\n"));
+        }
+    }
+    if text.is_empty() {
+        out.push_str(&format!("{label}\n"));
+    }
+    out
+}
+
+/// The part of the source line to show, the blanks (tabs kept) before the fault, and the
+/// marker's width. Lines longer than 160 characters are cut to 70 either side of the fault.
+fn window(loc: &Location) -> (String, String, usize) {
+    const WINDOW: usize = 70;
+    const WHOLE: usize = 160;
+    let chars: Vec<char> = loc.line_text.chars().collect();
+    let col = (loc.column - 1).min(chars.len());
+    let long = chars.len() > WHOLE;
+    let from = if long { col.saturating_sub(WINDOW) } else { 0 };
+    let width = if long {
+        loc.width.min(WINDOW)
+    } else {
+        loc.width
+    };
+    let to = if long {
+        (col + width + WINDOW).min(chars.len())
+    } else {
+        chars.len()
+    };
+    let mut shown: String = chars[from..to].iter().collect();
+    let mut lead_chars: Vec<char> = chars[from..col].to_vec();
+    if from > 0 {
+        shown.insert(0, '…');
+        lead_chars.insert(0, ' ');
+    }
+    if to < chars.len() {
+        shown.push('…');
+    }
+    // Tabs in the line keep their width over the marker.
+    let lead: String = lead_chars
+        .iter()
+        .map(|&c| if c == '\t' { '\t' } else { ' ' })
+        .collect();
+    (shown, lead, width.max(1))
 }
 
 impl fmt::Display for KilnError {
@@ -242,8 +284,44 @@ mod tests {
             .at(loc)
             .with_hint("did you mean `lgamma`?");
         let r = e.render();
-        assert!(r.contains("2 | lgama(a) + 1\n  | ^^^^^\n"), "{r}");
-        assert!(r.contains("hint: did you mean `lgamma`?"));
+        assert_eq!(
+            r,
+            "problem  unknown function `lgama`\n\
+             where    energy, line 2, column 1\n         \
+             lgama(a) + 1\n         \
+             ‾‾‾‾‾\n\
+             try      did you mean `lgamma`?\n"
+        );
+    }
+
+    #[test]
+    fn the_marker_keeps_tabs_and_long_lines_are_windowed() {
+        let text = "\tx +\tfoo";
+        let loc = Location::in_text("energy", text, 5, 8);
+        let r = KilnError::new(ErrorKind::Formula, "unknown name `foo`")
+            .at(loc)
+            .render();
+        let lines: Vec<&str> = r.lines().collect();
+        assert_eq!(lines[2], "         \tx +\tfoo");
+        assert_eq!(lines[3], "         \t   \t‾‾‾");
+        // A line of 400 characters is cut around the fault, which stays marked.
+        let long = format!("{}bad{}", "a + ".repeat(50), " + b".repeat(50));
+        let at = long.find("bad").unwrap();
+        let loc = Location::in_text("energy", &long, at, at + 3);
+        let r = KilnError::new(ErrorKind::Formula, "x").at(loc).render();
+        let lines: Vec<&str> = r.lines().collect();
+        assert!(
+            lines[2].starts_with("         …") && lines[2].ends_with('…'),
+            "{r}"
+        );
+        let marker = lines[3].chars().position(|c| c == '‾').unwrap();
+        let above: String = lines[2].chars().skip(marker).take(3).collect();
+        assert_eq!(above, "bad", "{r}");
+        // Without a place, only the problem and the suggestion.
+        let r = KilnError::usage("no command given")
+            .with_hint("try `kiln --help`")
+            .render();
+        assert_eq!(r, "problem  no command given\ntry      try `kiln --help`\n");
     }
 
     #[test]

@@ -2,6 +2,7 @@
 //! and error hints.
 //!
 //! Owns: [`num`] (short numbers), [`decimals4`] (log Z values), [`pm`] (value ± error),
+//! [`share`] (a share as a percentage), [`rough`] (a factor in two significant digits),
 //! [`table`] (aligned text columns).
 //! Must not: decide what to say (callers do), or know about any stage's types.
 
@@ -30,6 +31,20 @@ pub fn num(v: f64) -> String {
     } else {
         format!("{v:.4e}")
     }
+}
+
+/// A rough factor, in two significant digits ("about 7.1 times", "about 150 times",
+/// "about 5.2e21 times"): what the words around a Bayes factor can honestly claim.
+pub fn rough(v: f64) -> String {
+    if !v.is_finite() || v == 0.0 {
+        return num(v);
+    }
+    let a = v.abs();
+    if a >= 1e6 {
+        return format!("{v:.1e}");
+    }
+    let scale = libm::pow(10.0, libm::floor(libm::log10(a)) - 1.0);
+    num(libm::round(v / scale) * scale)
 }
 
 /// A log Z value with four decimals.
@@ -63,6 +78,24 @@ pub fn table(rows: &[Vec<String>]) -> String {
         let _ = writeln!(out, "  {}", line.join("  ").trim_end());
     }
     out
+}
+
+/// A share in [0, 1] as a percentage with two significant digits ("34 %", "0.042 %"); a
+/// share below 0.001 % is "< 0.001 %", never a rounded zero, and only 0 is "0 %".
+pub fn share(v: f64) -> String {
+    if !v.is_finite() {
+        return num(v);
+    }
+    let p = 100.0 * v;
+    if p == 0.0 {
+        return "0 %".into();
+    }
+    if p.abs() < 1e-3 {
+        return "< 0.001 %".into();
+    }
+    let digits = (1 - libm::floor(libm::log10(p.abs())) as i32).clamp(0, 4) as usize;
+    let t = format!("{p:.digits$}");
+    format!("{t} %")
 }
 
 /// Standard errors below this are printed as "< 1e-10", never as zero.
@@ -113,5 +146,24 @@ mod tests {
         assert_eq!(num(1e-9), "1.0000e-9");
         assert_eq!(num(31.4), "31.4");
         assert_eq!(num(2.0), "2");
+    }
+
+    #[test]
+    fn rough_factors_keep_two_significant_digits() {
+        assert_eq!(rough(7.12675), "7.1");
+        assert_eq!(rough(20.0855), "20");
+        assert_eq!(rough(148.413), "150");
+        assert_eq!(rough(1.0), "1");
+        assert_eq!(rough(5.18470553e21), "5.2e21");
+    }
+
+    #[test]
+    fn shares_keep_two_digits_and_never_round_to_zero() {
+        assert_eq!(share(0.34), "34 %");
+        assert_eq!(share(0.00042), "0.042 %");
+        assert_eq!(share(0.0012345), "0.12 %");
+        assert_eq!(share(1e-9), "< 0.001 %");
+        assert_eq!(share(0.0), "0 %");
+        assert_eq!(share(1.0), "100 %");
     }
 }

@@ -20,6 +20,7 @@
 //! Must not: use the sampler or the Laplace masses.
 
 use crate::common::maths::{exp, ln, log_sum_exp};
+use crate::common::message::Message;
 use crate::model::target::Target;
 use crate::search::coverage::Range;
 use crate::search::scan::{mode_sd_z, search_axes, GridAxis, Spacing};
@@ -51,7 +52,7 @@ pub struct GridResult {
     pub narrowest: Vec<f64>,
     /// Energy evaluations spent.
     pub evaluations: u64,
-    pub warnings: Vec<String>,
+    pub warnings: Vec<Message>,
 }
 
 /// Target error of the grid value, in nats.
@@ -400,8 +401,10 @@ pub fn grid_log_z(
         if 4.0 * (BASE_CELLS[d - 1].min(0.25 * max_points)) > max_points
             && BASE_CELLS[d - 1].min(0.25 * max_points) < 16.0
         {
-            warnings.push(format!(
-                "grid quadrature skipped: one evaluation costs about {work_per_point} operations, and even a coarse grid is over the budget of {max_work:.1e}"
+            warnings.push(Message::warning(
+                "grid_skipped",
+                format!("grid quadrature skipped: one evaluation costs about {work_per_point} operations, and even a coarse grid is over the budget of {max_work:.1e}"),
+                "the other checks still vote; for a grid value, simplify the formula or thin the data",
             ));
             return Some(GridResult {
                 log_z: f64::NAN,
@@ -474,22 +477,25 @@ pub fn grid_log_z(
     }
     let mut r = result?;
     if !r.converged {
-        warnings.push(format!(
-            "grid quadrature ran out of its work budget before its error estimate fell below {TOLERANCE:.0e} nats: its value carries an error estimate of {:.2e} nats",
-            r.change
+        warnings.push(Message::warning(
+            "grid_budget",
+            format!("grid quadrature ran out of its work budget before its error estimate fell below {TOLERANCE:.0e} nats: its value carries an error estimate of {:.2e} nats", r.change),
+            "read the grid value with that error; bounds closer around the mass let the grid resolve it",
         ));
     }
     if r.edge_mass > 1e-4 {
-        warnings.push(format!(
-            "the edge of the quadrature grid still carries {:.2}% of the mass: the density has heavy tails, and the grid value may be too low",
-            100.0 * r.edge_mass
+        warnings.push(Message::warning(
+            "grid_edge_mass",
+            format!("the edge of the quadrature grid still carries {:.2}% of the mass: the density has heavy tails, and the grid value may be too low", 100.0 * r.edge_mass),
+            "give bounds that contain the mass, or a prior that makes the tails fall faster",
         ));
     }
     if r.log_z == f64::NEG_INFINITY {
-        warnings.push(
-            "the quadrature grid found no mass: the density is zero or not finite everywhere on it"
-                .to_string(),
-        );
+        warnings.push(Message::warning(
+            "grid_no_mass",
+            "the quadrature grid found no mass: the density is zero or not finite everywhere on it",
+            "check the formula's domain and the bounds: the density must be positive somewhere inside them",
+        ));
     }
     r.warnings = warnings;
     Some(r)

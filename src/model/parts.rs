@@ -211,10 +211,12 @@ pub(super) fn validate_settings(s: &Settings) -> Result<(), KilnError> {
             );
         }
     }
-    if let Some(a) = s.target_accept {
+    if let Some(a) = s.acceptance_goal {
         if !(a > 0.05 && a < 0.999) {
-            return Err(KilnError::spec(format!("setting \"target_accept\" is {a}"))
-                .with_hint("use a value between 0.05 and 0.999, typically 0.8"));
+            return Err(
+                KilnError::spec(format!("setting \"acceptance_goal\" is {a}"))
+                    .with_hint("use a value between 0.05 and 0.999, typically 0.8"),
+            );
         }
     }
     Ok(())

@@ -57,6 +57,8 @@ const SPEC_KEYS: &[&str] = &[
     "mixture",
     "settings",
 ];
+/// Settings that were renamed: the old name is an error that names the new one.
+const RENAMED: &[(&str, &str)] = &[("target_accept", "acceptance_goal")];
 const VARIABLE_KEYS: &[&str] = &["name", "size", "elements", "lower", "upper", "prior"];
 const COMPONENT_KEYS: &[&str] = &["weight", "mean", "cov", "sd"];
 const SETTINGS_KEYS: &[&str] = &[
@@ -67,7 +69,7 @@ const SETTINGS_KEYS: &[&str] = &[
     "method",
     "integrator",
     "starts",
-    "target_accept",
+    "acceptance_goal",
 ];
 
 #[derive(Clone, Debug, Default, Deserialize, Serialize, PartialEq)]
@@ -120,8 +122,10 @@ pub struct Settings {
     /// Number of optimiser starts in the mode search.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub starts: Option<usize>,
+    /// The average acceptance of the Hamiltonian moves that warm-up tunes the step size to
+    /// reach (default 0.8).
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub target_accept: Option<f64>,
+    pub acceptance_goal: Option<f64>,
 }
 
 /// Data as written: columns in the order written, or CSV text with a header row.
@@ -345,6 +349,15 @@ fn json_error(source: &str, text: &str, e: &serde_json::Error) -> KilnError {
                 }
             }
             let allowed = allowed_keys_for(&message);
+            if let Some((_, new)) = RENAMED.iter().find(|(old, _)| *old == key) {
+                let mut err = KilnError::spec(format!("the setting `{key}` is now called `{new}`"));
+                if let Some(loc) = location {
+                    err = err.at(loc);
+                }
+                return err.with_hint(format!(
+                    "rename \"{key}\" to \"{new}\"; the meaning and the value are the same"
+                ));
+            }
             hint = match nearest(key, allowed.iter().copied()) {
                 Some(n) => format!("did you mean `{n}`?"),
                 None => format!("allowed keys here: {}", allowed.join(", ")),

@@ -5,6 +5,7 @@
 //! Must not: compute statistics.
 
 pub mod csv;
+pub mod parts;
 pub mod text;
 
 pub use csv::{draws_csv, run_draws_csv};

@@ -1,13 +1,16 @@
 //! The human-readable reports of the command line: `kiln check`, `kiln run`, `kiln compare`
 //! (the page draws its own from the same JSON).
 //!
-//! Owns: the words and tables of each report, in plain words for anything that makes a number
-//! unreliable.
+//! Owns: the order and words of each report: the verdict, then the warnings with what to do,
+//! the numbers and tables, and the notes last (pieces shared between reports: `parts`).
 //! Must not: compute statistics; it only lays out what `run` produced, with `common::format`.
 
-use crate::common::format::{decimals4, num, pm, se_text, table};
+use super::parts::{
+    coverage_figures, coverage_text, folded_words, message_lines, notes_text, number_list,
+    run_modes_text, settings_words, unknowns_text, warnings_text,
+};
+use crate::common::format::{decimals4, num, pm, table};
 use crate::run::{CheckOutcome, CompareOutcome, RunOutcome};
-use crate::search::{Coverage, FoundBy};
 use std::fmt::Write;
 
 fn bounds_text(lower: Option<f64>, upper: Option<f64>) -> String {
@@ -53,21 +56,21 @@ pub fn check_text(c: &CheckOutcome) -> String {
 
     let _ = writeln!(
         o,
-        "\nModes: {} found from {} optimiser starts ({} gradient evaluations)",
+        "\nModes: {} found from {} optimiser starts ({} energy evaluations), largest Laplace mass first",
         c.modes.len(),
         c.starts,
-        c.gradient_evaluations
+        super::parts::grouped(c.energy_evaluations)
     );
     let mut rows = vec![{
-        let mut h = vec!["#".to_string()];
+        let mut h = vec!["mode".to_string()];
         h.extend(c.unknowns.iter().map(|u| u.name.clone()));
         h.push("energy".into());
         h.push("Laplace mass".into());
         h
     }];
-    const SHOWN: usize = 20;
-    for (k, m) in c.modes.iter().take(SHOWN).enumerate() {
-        let mut r = vec![format!("{}", k + 1)];
+    for &k in &c.mode_table.shown {
+        let m = &c.modes[k - 1];
+        let mut r = vec![format!("{k}")];
         r.extend(m.location.iter().map(|v| num(*v)));
         r.push(num(m.energy));
         r.push(format!(
@@ -78,8 +81,12 @@ pub fn check_text(c: &CheckOutcome) -> String {
         rows.push(r);
     }
     o.push_str(&table(&rows));
-    if c.modes.len() > SHOWN {
-        let _ = writeln!(o, "  … and {} more (see --json)", c.modes.len() - SHOWN);
+    if let Some(f) = folded_words(&c.mode_table) {
+        let _ = writeln!(
+            o,
+            "  … {f} (modes {}; `kiln check --json` has each)",
+            number_list(&c.mode_table.folded)
+        );
     }
     if c.modes.iter().any(|m| m.non_quadratic) {
         let _ = writeln!(
@@ -157,11 +164,9 @@ pub fn check_text(c: &CheckOutcome) -> String {
     }
     coverage_text(&mut o, &c.mode_coverage);
     if !c.warnings.is_empty() {
-        let _ = writeln!(o, "\nWarnings");
-        for w in &c.warnings {
-            let _ = writeln!(o, "  - {w}");
-        }
+        warnings_text(&mut o, &c.warnings);
     }
+    notes_text(&mut o, &c.notes);
     let _ = writeln!(
         o,
         "\nThe Laplace value assumes every mode was found and is Gaussian-shaped; `kiln run` samples the density to check it."
@@ -178,18 +183,14 @@ pub fn run_text(r: &RunOutcome) -> String {
         &r.title
     };
     let _ = writeln!(o, "Kiln run: {title}");
-    let s = &r.settings;
-    let _ = writeln!(
-        o,
-        "  seed {}, {} chains × ({} warm-up + {} draws), method {:?}, integrator {:?}, {} energy evaluations",
-        s.seed, s.chains, s.warmup, s.draws, s.method, s.integrator, r.gradient_evaluations
-    );
+    let _ = writeln!(o, "  {}", settings_words(&r.settings, r.energy_evaluations));
     let _ = writeln!(
         o,
         "\n{}\n  {}",
         r.verdict.headline.to_uppercase(),
         r.verdict.sentence
     );
+    warnings_text(&mut o, &r.warnings);
     let _ = writeln!(o, "\nlog Z = {}", pm(r.est.log_z, r.est.log_z_se));
     if r.est.log_z_se < crate::common::format::SE_FLOOR {
         let _ = writeln!(
@@ -239,76 +240,15 @@ pub fn run_text(r: &RunOutcome) -> String {
         }
     }
 
-    let _ = writeln!(o, "\nModes");
-    let mut h = vec!["#".to_string()];
-    h.extend(r.unknowns.iter().map(|u| u.name.clone()));
-    h.extend([
-        "mass".into(),
-        "± SE".into(),
-        "Laplace".into(),
-        "visited".into(),
-    ]);
-    if r.exact_masses.is_some() {
-        h.push("exact".into());
-    }
-    let mut rows = vec![h];
-    for (k, m) in r.est.modes.iter().take(30).enumerate() {
-        let mut row = vec![format!(
-            "{}{}",
-            k + 1,
-            if m.found_by == FoundBy::Chains {
-                "+"
-            } else {
-                ""
-            }
-        )];
-        row.extend(m.location.iter().map(|v| num(*v)));
-        match m.mass_se {
-            Some(se) => {
-                row.push(format!("{:.4}", m.mass));
-                row.push(se_text(se));
-            }
-            None => {
-                row.push("not visited".into());
-                row.push(String::new());
-            }
-        }
-        row.push(format!("{:.4}", m.laplace_mass));
-        row.push(if m.visited { "yes".into() } else { "NO".into() });
-        if let Some(ex) = &r.exact_masses {
-            row.push(format!("{:.4}", ex[k]));
-        }
-        rows.push(row);
-    }
-    o.push_str(&table(&rows));
-    if r.est.modes.len() > 30 {
-        let _ = writeln!(o, "  … and {} more (see --json)", r.est.modes.len() - 30);
-    }
-    if r.est.modes.iter().any(|m| m.found_by == FoundBy::Chains) {
-        let _ = writeln!(o, "  + found by the chains, not by the mode search");
-    }
+    run_modes_text(
+        &mut o,
+        &r.unknowns,
+        &r.est.modes,
+        &r.mode_table,
+        r.exact_masses.as_deref(),
+    );
     coverage_text(&mut o, &r.mode_coverage);
-
-    let _ = writeln!(o, "\nUnknowns (target draws, weighted by p(β=1|x))");
-    let mut rows = vec![
-        ["unknown", "mean", "sd", "5%", "50%", "95%", "R-hat", "ESS"]
-            .iter()
-            .map(|s| s.to_string())
-            .collect::<Vec<_>>(),
-    ];
-    for (j, u) in r.unknowns.iter().enumerate() {
-        rows.push(vec![
-            u.name.clone(),
-            num(r.est.mean[j]),
-            num(r.est.sd[j]),
-            num(r.est.quantiles[j][0]),
-            num(r.est.quantiles[j][1]),
-            num(r.est.quantiles[j][2]),
-            format!("{:.3}", r.est.rhat[j]),
-            format!("{:.0}", r.est.ess[j]),
-        ]);
-    }
-    o.push_str(&table(&rows));
+    unknowns_text(&mut o, &r.unknowns_summary);
 
     let d = &r.est.diagnostics;
     let _ = writeln!(o, "\nDiagnostics");
@@ -337,34 +277,15 @@ pub fn run_text(r: &RunOutcome) -> String {
             " (Laplace)"
         }
     );
-    for n in &r.notes {
-        let _ = writeln!(o, "  note: {n}");
-    }
-    if r.warnings.is_empty() {
-        let _ = writeln!(o, "\nNo warnings.");
-    } else {
-        let _ = writeln!(o, "\nWarnings");
-        for w in &r.warnings {
-            let _ = writeln!(o, "  - {w}");
-        }
-    }
+    notes_text(&mut o, &r.notes);
     o
 }
 
-/// The report of `kiln compare`.
+/// The report of `kiln compare`: the log Bayes factor and what it means (or why it is not to
+/// be used), then each run's log Z, verdict and mode search, then both runs' warnings.
 pub fn compare_text(c: &CompareOutcome, name_a: &str, name_b: &str) -> String {
     let mut o = String::new();
-    let _ = writeln!(o, "Kiln compare\n");
-    let _ = writeln!(
-        o,
-        "  A: {name_a}  log Z = {}",
-        pm(c.a.est.log_z, c.a.est.log_z_se)
-    );
-    let _ = writeln!(
-        o,
-        "  B: {name_b}  log Z = {}",
-        pm(c.b.est.log_z, c.b.est.log_z_se)
-    );
+    let _ = writeln!(o, "Kiln compare: model A {name_a} with model B {name_b}");
     let bf = &c.bayes_factor;
     let _ = writeln!(
         o,
@@ -379,45 +300,28 @@ pub fn compare_text(c: &CompareOutcome, name_a: &str, name_b: &str) -> String {
             let _ = writeln!(o, "  {}", bf.meaning);
         }
     }
-    let _ = writeln!(
-        o,
-        "  A: {}\n  B: {}",
-        c.a.verdict.headline, c.b.verdict.headline
-    );
+    for (id, name, r) in [("A", name_a, &c.a), ("B", name_b, &c.b)] {
+        let _ = writeln!(o, "\nModel {id}: {name}");
+        let _ = writeln!(o, "  log Z = {}", pm(r.est.log_z, r.est.log_z_se));
+        let _ = writeln!(
+            o,
+            "  verdict: {} ({})",
+            r.verdict.headline,
+            match r.verdict.state {
+                crate::estimate::Agreement::Agree => "agree",
+                crate::estimate::Agreement::Disagree => "disagree",
+                crate::estimate::Agreement::NotEnoughEvidence => "not enough evidence",
+            }
+        );
+        let _ = writeln!(o, "  mode search: {}", coverage_figures(&r.mode_coverage));
+    }
     if c.warnings.is_empty() {
-        let _ = writeln!(o, "\nNo warnings.");
+        let _ = writeln!(o, "\nNo warnings in either run.");
     } else {
-        let _ = writeln!(o, "\nWarnings");
+        let _ = writeln!(o, "\nWarnings of the two runs — act on these");
         for w in &c.warnings {
-            let _ = writeln!(o, "  - {w}");
+            message_lines(&mut o, &w.message, &format!("model {}: ", w.model));
         }
     }
     o
-}
-
-/// The mode search's evidence, for the run and check reports.
-fn coverage_text(o: &mut String, c: &Coverage) {
-    let _ = writeln!(o, "\nMode search");
-    let _ = writeln!(o, "  {}", c.summary);
-    let k = &c.counts;
-    let _ = writeln!(
-        o,
-        "  {} of {} starts ended in {} distinct modes, {} of them reached by only one start; chance that one more start finds a new mode {:.1}% (Good–Turing); expected modes not yet seen {} (Boender & Rinnooy Kan)",
-        k.converged,
-        c.starts,
-        k.distinct,
-        k.singletons,
-        100.0 * c.new_mode_chance,
-        c.expected_unseen.map_or("unknown (too few starts)".to_string(), |u| format!("{u:.2}"))
-    );
-    if c.found_outward + c.found_by_chains > 0 {
-        let _ = writeln!(
-            o,
-            "  found otherwise: {} from known modes, {} by the chains",
-            c.found_outward, c.found_by_chains
-        );
-    }
-    for l in &c.limitations {
-        let _ = writeln!(o, "  limitation: {}", l.sentence);
-    }
 }

@@ -8,15 +8,17 @@
 //! Must not: print, read or write files, or format numbers (beyond the sentences of notes).
 
 pub mod density;
+pub mod digest;
 pub mod outcome;
 pub mod prepare;
 pub mod session;
 pub mod settings;
 
 pub use density::log_density_grid;
+pub use digest::{ModeTable, UnknownRow, UnknownsSummary, FOLD_SHARE, INTERVAL_LEVEL};
 pub use outcome::{
     bayes_factor, compare, finish_run, run, run_prepared, BayesFactor, CompareOutcome, Evidence,
-    PlotDraws, RunOutcome, RunResult, IS_DRAWS,
+    ModelMessage, PlotDraws, RunOutcome, RunResult, IS_DRAWS,
 };
 pub use prepare::{
     check, check_with_grid_budget, prepare, CheckOutcome, Exact, ModeSummary, Prepared, Unknown,
@@ -24,6 +26,6 @@ pub use prepare::{
 };
 pub use session::{Progress, RunningLogZ, Session};
 pub use settings::{
-    run_settings, sampler_options, Overrides, RunSettings, DEFAULT_CHAINS, DEFAULT_DRAWS,
-    DEFAULT_WARMUP, MAX_KEPT_VALUES,
+    run_settings, sampler_options, Overrides, RunSettings, DEFAULT_ACCEPTANCE_GOAL, DEFAULT_CHAINS,
+    DEFAULT_DRAWS, DEFAULT_WARMUP, MAX_KEPT_VALUES,
 };

@@ -5,12 +5,14 @@
 //! gathered into a [`RunOutcome`]), [`RunResult`] with its draws, and [`compare`].
 //! Must not: print or format numbers beyond the sentences of notes and warnings.
 
+use super::digest::{mode_table_by_mass, unknowns_summary, ModeTable, UnknownsSummary};
 use super::prepare::{unknowns_of, Prepared, Unknown};
 use super::session::Session;
 use super::settings::{Overrides, RunSettings};
 use crate::common::error::KilnError;
-use crate::common::format::num;
+use crate::common::format::rough;
 use crate::common::maths::sqrt;
+use crate::common::message::Message;
 use crate::common::stats::resample;
 use crate::estimate::crosscheck::Agreement;
 use crate::estimate::crosscheck::CheckInputs;
@@ -47,10 +49,19 @@ pub struct RunOutcome {
     pub verdict: Verdict,
     /// The mode search's evidence that every mode was found (with the modes the chains found).
     pub mode_coverage: Coverage,
-    pub warnings: Vec<String>,
-    pub notes: Vec<String>,
+    /// The unknowns in the summary's layout (median, 90 % interval, mean ± sd, R-hat,
+    /// effective draws), the interval's level stated.
+    pub unknowns_summary: UnknownsSummary,
+    /// The mode table's rows: by mass, with the tiny tail folded.
+    pub mode_table: ModeTable,
+    /// What to act on, each with a remedy.
+    pub warnings: Vec<Message>,
+    /// What Kiln chose and why.
+    pub notes: Vec<Message>,
     pub seed: u64,
-    pub gradient_evaluations: u64,
+    /// Every evaluation of the energy (with or without its gradient): the mode search, warm-up,
+    /// the kept draws and the chains' discovery of modes.
+    pub energy_evaluations: u64,
     /// Exact masses of the mixture components, in the order of `modes` (null unless a mixture).
     pub exact_masses: Option<Vec<f64>>,
 }
@@ -133,14 +144,17 @@ pub fn finish_run(
         warns.extend(g.warnings.iter().cloned());
     }
     let mut notes = p.search.notes.clone();
-    notes.extend(plan.notes.iter().cloned());
+    notes.extend(plan.notes.iter().map(|n| sampler_note(n)));
     if plan.new_modes > 0 {
-        notes.push(format!(
-            "the chains found {} mode(s) the optimiser had missed",
-            plan.new_modes
+        notes.push(Message::note(
+            "found_by_chains",
+            format!(
+                "the chains found {} mode(s) the mode search had missed",
+                plan.new_modes
+            ),
         ));
     }
-    let gradient_evaluations =
+    let energy_evaluations =
         p.search.evaluations + stepper.chain_evaluations() + plan.discovery_evaluations;
     // Exact masses, matched to modes by nearest component mean.
     let exact_masses = exact.map(|t| {
@@ -156,10 +170,13 @@ pub fn finish_run(
             })
             .collect()
     });
+    let unknowns = unknowns_of(spec);
     let outcome = RunOutcome {
         title: spec.title.clone(),
         dimension: p.target.dim(),
-        unknowns: unknowns_of(spec),
+        unknowns_summary: unknowns_summary(&unknowns, &est),
+        mode_table: mode_table_by_mass(&est.modes),
+        unknowns,
         settings,
         est,
         laplace_log_z,
@@ -171,7 +188,7 @@ pub fn finish_run(
         warnings: warns,
         notes,
         seed: p.seed,
-        gradient_evaluations,
+        energy_evaluations,
         exact_masses,
     };
     Ok(RunResult {
@@ -179,6 +196,36 @@ pub fn finish_run(
         draws,
         names,
     })
+}
+
+/// The codes of the sampler's notes (what warm-up chose), by how each sentence begins; a
+/// sentence the table does not know keeps the general code `warmup_choice`.
+pub const SAMPLER_NOTE_CODES: &[(&str, &str)] = &[
+    ("the base was refitted", "base_refitted"),
+    (
+        "Hamiltonian moves in every iteration",
+        "moves_every_iteration",
+    ),
+    ("Hamiltonian moves in ", "moves_schedule"),
+    (
+        "% of the base approximation lies where the density is zero",
+        "base_outside_support",
+    ),
+];
+
+/// A note of the sampler (plain text from warm-up) with its code.
+pub fn sampler_note(sentence: &str) -> Message {
+    let code = SAMPLER_NOTE_CODES
+        .iter()
+        .find(|(start, _)| {
+            if start.starts_with('%') {
+                sentence.contains(start)
+            } else {
+                sentence.starts_with(start)
+            }
+        })
+        .map_or("warmup_choice", |(_, code)| code);
+    Message::note(code, sentence)
 }
 
 fn dist2(a: &[f64], b: &[f64]) -> f64 {
@@ -267,7 +314,7 @@ pub fn bayes_factor(a: &Evidence, b: &Evidence) -> BayesFactor {
         };
         format!(
             "the data are about {} times as probable under model {better} as under model {worse} (a difference of {by:.3} nats in log evidence)",
-            num(crate::common::maths::exp(by))
+            rough(crate::common::maths::exp(by))
         )
     };
     let limited: Vec<&str> = [("A", a), ("B", b)]
@@ -293,19 +340,38 @@ pub fn bayes_factor(a: &Evidence, b: &Evidence) -> BayesFactor {
     }
 }
 
+/// A warning of one of the two runs of a comparison.
+#[derive(Clone, Debug, Serialize)]
+pub struct ModelMessage {
+    /// "A" or "B".
+    pub model: &'static str,
+    #[serde(flatten)]
+    pub message: Message,
+}
+
 /// What `kiln compare` reports: log(Z_A / Z_B) ± SE from two independent runs.
 #[derive(Clone, Debug, Serialize)]
 pub struct CompareOutcome {
     pub bayes_factor: BayesFactor,
     pub a: RunOutcome,
     pub b: RunOutcome,
-    pub warnings: Vec<String>,
+    /// Both runs' warnings, A's first.
+    pub warnings: Vec<ModelMessage>,
 }
 
 pub fn compare(a: RunOutcome, b: RunOutcome) -> CompareOutcome {
     let bf = bayes_factor(&Evidence::of(&a), &Evidence::of(&b));
-    let mut warnings: Vec<String> = a.warnings.iter().map(|w| format!("A: {w}")).collect();
-    warnings.extend(b.warnings.iter().map(|w| format!("B: {w}")));
+    let side = |model: &'static str, r: &RunOutcome| -> Vec<ModelMessage> {
+        r.warnings
+            .iter()
+            .map(|m| ModelMessage {
+                model,
+                message: m.clone(),
+            })
+            .collect()
+    };
+    let mut warnings = side("A", &a);
+    warnings.extend(side("B", &b));
     CompareOutcome {
         bayes_factor: bf,
         a,

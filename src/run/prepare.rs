@@ -4,7 +4,9 @@
 //! widths in the user's coordinates, and [`CheckOutcome`] with everything `kiln check` reports.
 //! Must not: sample, print or format numbers.
 
+use super::digest::{mode_table_by_laplace, ModeTable};
 use crate::common::error::KilnError;
+use crate::common::message::Message;
 use crate::estimate::quadrature::{grid_log_z, GridResult};
 use crate::model::spec::Spec;
 use crate::model::target::{MixtureTruth, Target};
@@ -58,7 +60,8 @@ pub struct Exact {
 #[derive(Clone, Debug, Serialize)]
 pub struct CheckOutcome {
     pub title: String,
-    pub notes: String,
+    /// The spec's own `notes` (its description).
+    pub description: String,
     /// "energy", "log_density" or "mixture".
     pub model: String,
     pub dimension: usize,
@@ -77,8 +80,14 @@ pub struct CheckOutcome {
     pub starts: usize,
     /// The search's evidence that every mode was found.
     pub mode_coverage: Coverage,
-    pub gradient_evaluations: u64,
-    pub warnings: Vec<String>,
+    /// The mode table's rows: by Laplace mass, with the tiny tail folded.
+    pub mode_table: ModeTable,
+    /// Every evaluation of the energy (with or without its gradient) in the mode search.
+    pub energy_evaluations: u64,
+    /// What to act on (the grid check's), each with a remedy.
+    pub warnings: Vec<Message>,
+    /// What the mode search chose and found.
+    pub notes: Vec<Message>,
 }
 
 /// The unknowns as reported: names and bounds.
@@ -96,7 +105,7 @@ pub(super) fn unknowns_of(spec: &Spec) -> Vec<Unknown> {
 
 /// The note that states the spec's priors (`None` without priors), e.g. "priors from the spec,
 /// added to the log density: `mu` normal(0, 2); `theta[1]`…`theta[6]` normal(mu, 0.6)".
-pub(super) fn priors_note(spec: &Spec) -> Option<String> {
+pub(super) fn priors_note(spec: &Spec) -> Option<Message> {
     let parts: Vec<String> = crate::model::target::prior_terms(spec)
         .iter()
         .map(|(_, text, subjects)| {
@@ -110,9 +119,12 @@ pub(super) fn priors_note(spec: &Spec) -> Option<String> {
         })
         .collect();
     (!parts.is_empty()).then(|| {
-        format!(
-            "priors from the spec, added to the log density: {}",
-            parts.join("; ")
+        Message::note(
+            "priors_used",
+            format!(
+                "priors from the spec, added to the log density: {}",
+                parts.join("; ")
+            ),
         )
     })
 }
@@ -197,14 +209,11 @@ pub fn check_with_grid_budget(spec: &Spec, grid_work: f64) -> Result<CheckOutcom
     if let Some(axis) = grid.as_ref().and_then(|g| g.growing_along) {
         return Err(heavy_tail_error(&p.target.names[axis]));
     }
-    let mut warnings = p.search.notes.clone();
-    if let Some(g) = &grid {
-        warnings.extend(g.warnings.iter().cloned());
-    }
+    let warnings = grid.as_ref().map_or(Vec::new(), |g| g.warnings.clone());
     let exact = p.target.mixture_truth().map(|t| exact_of(&t));
     Ok(CheckOutcome {
         title: spec.title.clone(),
-        notes: spec.notes.clone(),
+        description: spec.notes.clone(),
         model: spec.model.field().to_string(),
         dimension: p.target.dim(),
         unknowns: unknowns_of(spec),
@@ -219,8 +228,10 @@ pub fn check_with_grid_budget(spec: &Spec, grid_work: f64) -> Result<CheckOutcom
         seed: p.seed,
         starts: p.search.starts,
         mode_coverage: p.search.coverage.clone(),
-        gradient_evaluations: p.search.evaluations,
+        mode_table: mode_table_by_laplace(&masses),
+        energy_evaluations: p.search.evaluations,
         warnings,
+        notes: p.search.notes.clone(),
     })
 }
 

@@ -18,6 +18,8 @@ use serde::Serialize;
 pub const DEFAULT_CHAINS: usize = 8;
 pub const DEFAULT_WARMUP: usize = 500;
 pub const DEFAULT_DRAWS: usize = 1000;
+/// The default average acceptance of the Hamiltonian moves that warm-up aims the step size at.
+pub const DEFAULT_ACCEPTANCE_GOAL: f64 = 0.8;
 /// Draws of the importance-sampling cross-check.
 pub const IS_DRAWS: usize = 4000;
 /// Most values the kept draws may hold in memory (draws × chains × (unknowns + 3)).
@@ -43,7 +45,8 @@ pub struct RunSettings {
     pub draws: usize,
     pub method: Method,
     pub integrator: Integrator,
-    pub target_accept: f64,
+    /// The average acceptance of the Hamiltonian moves that warm-up tunes the step size to reach.
+    pub acceptance_goal: f64,
 }
 
 fn parse_method(m: &str) -> Result<Method, KilnError> {
@@ -84,7 +87,7 @@ pub fn run_settings(spec: &Spec, o: &Overrides) -> Result<RunSettings, KilnError
         draws: o.draws.or(s.draws).unwrap_or(DEFAULT_DRAWS),
         method,
         integrator,
-        target_accept: s.target_accept.unwrap_or(0.8),
+        acceptance_goal: s.acceptance_goal.unwrap_or(DEFAULT_ACCEPTANCE_GOAL),
     };
     if !(1..=64).contains(&r.chains) {
         return Err(KilnError::usage(format!("{} chains requested", r.chains))
@@ -117,6 +120,6 @@ pub fn sampler_options(r: &RunSettings) -> SamplerOptions {
     o.draws = r.draws;
     o.method = r.method;
     o.integrator = r.integrator;
-    o.target_accept = r.target_accept;
+    o.target_accept = r.acceptance_goal;
     o
 }

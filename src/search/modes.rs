@@ -15,6 +15,7 @@ use super::starts::{start_point, SearchOptions};
 use crate::common::error::KilnError;
 use crate::common::format::num;
 use crate::common::maths::sqrt;
+use crate::common::message::Message;
 use crate::common::rng::{Purpose, Stream};
 use crate::model::target::{Target, TargetEval, Transform};
 use nalgebra::DMatrix;
@@ -69,8 +70,8 @@ pub struct ModeSearch {
     pub evaluations: u64,
     /// The evidence that every mode was found.
     pub coverage: Coverage,
-    /// Plain-words remarks for the report.
-    pub notes: Vec<String>,
+    /// What the search chose and found, for the report's notes.
+    pub notes: Vec<Message>,
 }
 
 /// Work budget of the scattered starts, in tape instructions (evaluations × the evaluator's
@@ -288,13 +289,15 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
         .with_hint("check the formula's domain (log of a negative number, division by zero), or give bounds that keep the unknowns where it is defined"));
     }
     if bad_starts > 0 {
-        notes.push(format!(
-            "{bad_starts} of {starts} starting points had non-finite energy (zero density there) and were skipped"
+        notes.push(Message::note(
+            "starts_not_finite",
+            format!("{bad_starts} of {starts} starting points had non-finite energy (zero density there) and were skipped"),
         ));
     }
     if bad_gradients > 0 {
-        notes.push(format!(
-            "{bad_gradients} of {starts} starting points had a finite energy but a non-finite gradient (for example sqrt at 0) and were skipped"
+        notes.push(Message::note(
+            "starts_gradient_not_finite",
+            format!("{bad_gradients} of {starts} starting points had a finite energy but a non-finite gradient (for example sqrt at 0) and were skipped"),
         ));
     }
     if !opts.stop_rule {
@@ -311,20 +314,24 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
     hops += lattice_search(target, &mut ev, &mut modes, outward * 8)?;
     let found_outward = modes.len() - before;
     if found_outward > 0 {
-        notes.push(format!(
-            "{found_outward} of the {} modes were found from known modes, by crossing barriers and by repeating the steps between neighbouring modes ({hops} optimiser runs)",
-            modes.len()
+        notes.push(Message::note(
+            "found_from_modes",
+            format!("{found_outward} of the {} modes were found from known modes, by crossing barriers and by repeating the steps between neighbouring modes ({hops} optimiser runs)", modes.len()),
         ));
     }
     let scanned = scan(target, &mut modes, opts.scan_work)?;
     let scan_new: usize = scanned.iter().map(|s| s.new_modes).sum();
     if scan_new > 0 {
-        notes.push(format!(
-            "{scan_new} mode(s) were found only by the dense scan of the searched region"
+        notes.push(Message::note(
+            "found_by_scan",
+            format!("{scan_new} mode(s) were found only by the dense scan of the searched region"),
         ));
     }
     if modes.iter().any(|m| m.non_quadratic) {
-        notes.push("some modes are far from Gaussian; their Laplace masses use the measured width instead of the Hessian".to_string());
+        notes.push(Message::note(
+            "modes_not_gaussian",
+            "some modes are far from Gaussian; their Laplace masses use the measured width instead of the Hessian",
+        ));
     }
     modes.sort_by(|a, b| a.energy.total_cmp(&b.energy));
     let evaluations = ev.evaluations + scanned.iter().map(|s| s.evaluations).sum::<u64>();

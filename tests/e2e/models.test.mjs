@@ -102,7 +102,13 @@ test('a bad cell and a bad index are reported with row and column, and the text 
   await page.fill(id('data-csv'), bad);
   await page.waitForFunction((sel) => /data row 2 \(line 3\), column `plot`: `one` is not a number/.test(document.querySelector(sel)?.textContent || ''), id('error-box'), { timeout: 20000 });
   const box = await page.textContent(id('error-box'));
-  assert.match(box, /--> data, line 3, column 5/);
+  // The labelled record: where (part, line, column), the line itself and a marker under the fault.
+  assert.match(box, /^where\s+data, line 3, column 5$/m);
+  const lines = box.split('\n');
+  const src = lines.findIndex((l) => l.trim() === '3.8,one');
+  assert.ok(src > 0, box);
+  assert.equal(lines[src + 1].indexOf('‾‾‾'), lines[src].indexOf('one'), 'the marker sits under `one`');
+  assert.match(box, /^try\s+write numbers as in/m);
   assert.equal(await page.inputValue(id('data-csv')), bad, 'the text is kept');
   await page.fill(id('data-csv'), 'yield,plot\n4.1,1\n3.8,4\n');
   await page.waitForFunction((sel) => /data row 2, column `plot`: 4 is not an element of `mu`/.test(document.querySelector(sel)?.textContent || ''), id('error-box'), { timeout: 20000 });

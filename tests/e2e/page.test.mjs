@@ -92,7 +92,14 @@ test('a bad formula shows the caret error and keeps the text', async () => {
   const text = await page.textContent(id('error-box'));
   assert.match(text, /unknown function `lgama`/);
   assert.match(text, /did you mean `lgamma`/);
-  assert.match(text, /\n\s*\|\s*\^{5}/);
+  // The labelled record: the problem, where, the line with a marker under the fault, what to try.
+  assert.match(text, /^problem\s+unknown function `lgama`$/m);
+  assert.match(text, /^where\s+energy, line 1, column 1$/m);
+  const lines = text.split('\n');
+  const src = lines.findIndex((l) => l.trim() === bad);
+  assert.ok(src > 0, text);
+  assert.equal(lines[src + 1].trimEnd(), ' '.repeat(lines[src].indexOf('lgama')) + '‾'.repeat(5), 'the marker sits under `lgama`');
+  assert.match(text, /^try\s+did you mean `lgamma`\?$/m);
   await shot(page, '03-formula-error');
   assert.equal(await page.inputValue(id('formula-editor')), bad);
   // The text survives a reload (kept in the page's local storage).

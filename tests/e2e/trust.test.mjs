@@ -49,7 +49,7 @@ test('a ring: the verdict headline agrees with its sentence and with kiln run', 
   assert.equal(laplace.votes, false);
   assert.ok((await page.textContent(id('cross-checks'))).includes('Does not vote'));
   // The mode search's evidence is on the page.
-  const foot = await page.textContent('#modes-foot');
+  const foot = await page.textContent(id('modes-caption'));
   assert.ok(/Mode search:/.test(foot) && /Good–Turing/.test(foot) && /Boender & Rinnooy Kan/.test(foot), foot);
   await context.close();
 });

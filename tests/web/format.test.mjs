@@ -2,7 +2,7 @@
 // expected string is worked out from the rules in the comments, not taken from the page.
 import { test } from 'node:test';
 import assert from 'node:assert/strict';
-import { str, sentence, messageOf, fmtSig, fmtFixed, fmtPM, fmtInt, fmtPct, fmtDuration } from '../../www/format.js';
+import { str, sentence, messageOf, fmtSig, fmtFixed, fmtPM, fmtInt, fmtPct, fmtShare, fmtDuration } from '../../www/format.js';
 import { isNum, parseNumber, quantiles } from '../../www/numbers.js';
 
 test('fmtSig: four significant digits, exponent form outside [1e-4, 1e6), ASCII minus', () => {
@@ -86,4 +86,13 @@ test('isNum and quantiles', () => {
   assert.deepEqual(quantiles([5, 1, NaN, 3, Infinity, 2, 4], 0.25), [2, 4]);
   assert.deepEqual(quantiles(Float64Array.of(7), 0.1), [7, 7]);
   assert.equal(quantiles([NaN, -Infinity], 0.1), null);
+});
+
+test('fmtShare writes a share as the command line does (the cases of common::format::share\'s test)', () => {
+  assert.equal(fmtShare(0.34), '34 %');
+  assert.equal(fmtShare(0.00042), '0.042 %');
+  assert.equal(fmtShare(0.0012345), '0.12 %');
+  assert.equal(fmtShare(1e-9), '< 0.001 %');
+  assert.equal(fmtShare(0), '0 %');
+  assert.equal(fmtShare(1), '100 %');
 });
