@@ -8,7 +8,7 @@
 
 use crate::common::error::KilnError;
 use crate::run::{self, Overrides, Session};
-use crate::sample::{Record, Step};
+use crate::sample::{decode_records, encode_records, Step};
 use serde::Serialize;
 use wasm_bindgen::prelude::*;
 
@@ -194,31 +194,41 @@ impl RunSession {
         }
     }
 
-    /// Runs this worker's chains through the current step; returns their records as JSON.
-    pub fn run_step(&mut self) -> Result<String, JsValue> {
-        let records = self.session.run_step();
-        serde_json::to_string(&records)
-            .map_err(|e| to_js_error(&KilnError::usage(format!("could not encode records: {e}"))))
+    /// A session for the given chains that takes the leading worker's modes (its `modes()`)
+    /// instead of searching again; it runs and absorbs steps but does not summarise.
+    pub fn follow(
+        spec_json: &str,
+        overrides_json: &str,
+        owned_chains: Vec<u32>,
+        modes_json: &str,
+    ) -> Result<RunSession, JsValue> {
+        let spec = spec_of(spec_json)?;
+        let o = overrides_of(overrides_json)?;
+        let owned: Vec<usize> = owned_chains.iter().map(|c| *c as usize).collect();
+        let session =
+            Session::follow(&spec, &o, &owned, modes_json).map_err(|e| to_js_error(&e))?;
+        Ok(RunSession {
+            session,
+            result: None,
+        })
     }
 
-    /// Takes `JSON.stringify([...])` of every worker's `run_step()` result and advances.
-    pub fn absorb(&mut self, all_records_json: &str) -> Result<(), JsValue> {
-        let parts: Vec<String> = serde_json::from_str(all_records_json).map_err(|e| {
-            to_js_error(&KilnError::usage(format!(
-                "could not read the records: {e}"
-            )))
-        })?;
-        let mut records: Vec<Record> = Vec::new();
-        for p in parts {
-            let mut r: Vec<Record> = serde_json::from_str(&p).map_err(|e| {
-                to_js_error(&KilnError::usage(format!(
-                    "could not read the records: {e}"
-                )))
-            })?;
-            records.append(&mut r);
-        }
+    /// The modes a leading session found, as JSON for `follow` (undefined for a follower).
+    pub fn modes(&self) -> Option<String> {
+        self.session.modes_json()
+    }
+
+    /// Runs this worker's chains through the current step; returns their records as one
+    /// Float64Array (see `sample::encode_records`).
+    pub fn run_step(&mut self) -> Vec<f64> {
+        encode_records(&self.session.run_step())
+    }
+
+    /// Takes every worker's `run_step()` arrays, concatenated in worker order, and advances.
+    pub fn absorb(&mut self, all_records: &[f64]) -> Result<(), JsValue> {
+        let records = decode_records(all_records).map_err(|e| to_js_error(&e))?;
         self.session.absorb(records).map_err(|e| to_js_error(&e))?;
-        if self.session.step().is_none() {
+        if self.session.step().is_none() && self.session.leads() {
             self.result = Some(self.session.finish().map_err(|e| to_js_error(&e))?);
         }
         Ok(())

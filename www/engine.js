@@ -159,11 +159,20 @@ export function createEngine(options) {
       await Promise.all(channels.map(function (ch) { return ch.ready; }));
       if (on.onPhase) on.onPhase('Searching for modes…');
       const overridesJson = JSON.stringify(overrides || {});
-      const readies = await Promise.all(channels.map(function (ch, w) {
+      const ownedBy = function (w) {
         const owned = [];
         for (let c = w; c < chains; c += W) owned.push(c);
-        return ch.call({ type: 'session', spec: specJson, overrides: overridesJson, owned: owned });
+        return owned;
+      };
+      // The first worker searches for the modes once; the others take its modes and only
+      // run their chains (the same plan, so the same bits as one worker).
+      const lead = await channels[0].call({ type: 'session', spec: specJson,
+        overrides: overridesJson, owned: ownedBy(0) });
+      const follows = await Promise.all(channels.slice(1).map(function (ch, i) {
+        return ch.call({ type: 'follow', spec: specJson, overrides: overridesJson,
+          owned: ownedBy(i + 1), modes: lead.modes });
       }));
+      const readies = [lead].concat(follows);
       let state = readies[0];
       if (state.chains !== chains) {
         throw internalError('the engine resolved ' + state.chains + ' chains, the page expected ' +
@@ -178,7 +187,12 @@ export function createEngine(options) {
       let lastProgress = null;
       while (state.stepKind !== 'done') {
         const recs = await Promise.all(channels.map(function (ch) { return ch.call({ type: 'step' }); }));
-        const all = JSON.stringify(recs.map(function (r) { return r.records; }));
+        // Every worker's records, in worker order, as one Float64Array (copied to each).
+        let length = 0;
+        for (const r of recs) length += r.records.length;
+        const all = new Float64Array(length);
+        let at = 0;
+        for (const r of recs) { all.set(r.records, at); at += r.records.length; }
         const absorbed = await Promise.all(channels.map(function (ch) {
           return ch.call({ type: 'absorb', all: all });
         }));

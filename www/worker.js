@@ -12,9 +12,12 @@
 //   {type: 'grid', spec, ix, iy, xmin, xmax, ymin, ymax, nx, ny} -> {type: 'grid', values}
 //   {type: 'readCsv', text}                      read_data_csv(text) -> {type: 'csv', result}
 //   {type: 'functions'}                          formula_functions() -> {type: 'functions', result}
-//   {type: 'session', spec, overrides, owned}   new RunSession -> {type: 'ready', ...state}
-//   {type: 'step'}                               run_step() -> {type: 'records', records}
-//   {type: 'absorb', all}                        absorb(all) -> {type: 'absorbed', progress, ...state}
+//   {type: 'session', spec, overrides, owned}   new RunSession (the leader: searches for the modes)
+//                                                -> {type: 'ready', modes (JSON text), ...state}
+//   {type: 'follow', spec, overrides, owned, modes}  RunSession.follow (takes the leader's modes)
+//                                                -> {type: 'ready', ...state}
+//   {type: 'step'}                               run_step() -> {type: 'records', records: Float64Array}
+//   {type: 'absorb', all: Float64Array}          absorb(all) -> {type: 'absorbed', progress, ...state}
 //   {type: 'finish', maxPoints}                  -> {type: 'final', result, draws, csv}
 // Any failure answers {type: 'error', error: {kind, message, rendered, ...}}.
 'use strict';
@@ -104,10 +107,19 @@ async function handle(msg) {
       if (kilnSession && kilnSession.free) kilnSession.free();
       kilnSession = null;
       kilnSession = new wasm_bindgen.RunSession(msg.spec, msg.overrides, Uint32Array.from(msg.owned));
+      return Object.assign({ type: 'ready', modes: kilnSession.modes() }, sessionState(kilnSession));
+    }
+    case 'follow': {
+      await kilnReady;
+      if (kilnSession && kilnSession.free) kilnSession.free();
+      kilnSession = null;
+      kilnSession = wasm_bindgen.RunSession.follow(msg.spec, msg.overrides,
+        Uint32Array.from(msg.owned), msg.modes);
       return Object.assign({ type: 'ready' }, sessionState(kilnSession));
     }
     case 'step': {
-      return { type: 'records', records: kilnSession.run_step() };
+      const records = kilnSession.run_step();
+      return { type: 'records', records: records, transfer: [records.buffer] };
     }
     case 'absorb': {
       kilnSession.absorb(msg.all);

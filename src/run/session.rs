@@ -1,7 +1,9 @@
 //! A run that advances one step at a time, for the page's workers.
 //!
 //! Owns: [`Session`] (a prepared target, its grid check and a stepper that owns some chains),
-//! the running log Z after each sampling step, and [`Progress`].
+//! the running log Z after each sampling step, and [`Progress`]. A leading session searches
+//! for the modes and summarises; following sessions (the page's other workers) take the
+//! leader's modes instead of searching again and only run their chains.
 //! Must not: differ in any number from a whole run (`outcome::run` drives a session too).
 
 use super::outcome::{finish_run, RunResult};
@@ -10,17 +12,25 @@ use super::settings::{run_settings, sampler_options, Overrides, RunSettings};
 use crate::common::error::KilnError;
 use crate::estimate::quadrature::{grid_log_z, GridResult};
 use crate::model::spec::Spec;
+use crate::model::target::Target;
+use crate::search::laplace::Laplace;
+use crate::search::modes::Mode;
 use serde::Serialize;
 
 /// A run that advances one step at a time, for the page: each worker holds one, owning some
 /// chains, and all exchange their records after every step (see `sample::Stepper`).
 pub struct Session {
     spec: Spec,
-    prepared: Prepared,
-    grid: Option<GridResult>,
+    /// The mode search and the grid check: only the leading session has them.
+    lead: Option<Lead>,
     settings: RunSettings,
     stepper: crate::sample::Stepper,
     running: Vec<RunningLogZ>,
+}
+
+struct Lead {
+    prepared: Prepared,
+    grid: Option<GridResult>,
 }
 
 /// log Z after some of the kept draws.
@@ -75,12 +85,64 @@ impl Session {
         )?;
         Ok(Session {
             spec: spec.clone(),
-            prepared,
-            grid,
+            lead: Some(Lead { prepared, grid }),
             settings,
             stepper,
             running: Vec::new(),
         })
+    }
+
+    /// A session for the given chains that takes the leader's modes ([`Session::modes_json`])
+    /// instead of searching: the same target, Laplace mixture and plan, so its chains' records
+    /// are bit for bit those the leader would make. It runs and absorbs steps but does not
+    /// summarise.
+    pub fn follow(
+        spec: &Spec,
+        overrides: &Overrides,
+        owned: &[usize],
+        modes_json: &str,
+    ) -> Result<Session, KilnError> {
+        let settings = run_settings(spec, overrides)?;
+        let mut seeded = spec.clone();
+        seeded.settings.seed = Some(settings.seed);
+        let target = Target::from_spec(&seeded)?;
+        let modes: Vec<Mode> = serde_json::from_str(modes_json).map_err(|e| {
+            KilnError::usage(format!("could not read the leading worker's modes: {e}"))
+                .with_hint("reload the page and run again")
+        })?;
+        if modes.is_empty() || modes.iter().any(|m| m.z.len() != target.dim()) {
+            return Err(
+                KilnError::usage("the leading worker's modes do not fit this model")
+                    .with_hint("reload the page and run again"),
+            );
+        }
+        let laplace = Laplace::from_modes(&modes)?;
+        let stepper = crate::sample::Stepper::new(
+            &target,
+            modes,
+            laplace,
+            sampler_options(&settings),
+            Some(owned),
+        )?;
+        Ok(Session {
+            spec: spec.clone(),
+            lead: None,
+            settings,
+            stepper,
+            running: Vec::new(),
+        })
+    }
+
+    /// The modes found by a leading session, as JSON (floats round-trip exactly), for
+    /// [`Session::follow`]; `None` for a following session.
+    pub fn modes_json(&self) -> Option<String> {
+        let lead = self.lead.as_ref()?;
+        serde_json::to_string(&lead.prepared.search.modes).ok()
+    }
+
+    /// True for the session that searched for the modes and can summarise.
+    pub fn leads(&self) -> bool {
+        self.lead.is_some()
     }
 
     pub fn settings(&self) -> &RunSettings {
@@ -111,7 +173,7 @@ impl Session {
             Some(crate::sample::Step::Sample { .. })
         );
         self.stepper.absorb(records)?;
-        if sampling {
+        if sampling && self.lead.is_some() {
             let e = crate::estimate::log_z_estimate(&self.stepper.plan, &self.stepper.kept);
             let draws = self.stepper.kept.iter().map(|r| r.beta.len()).sum();
             self.running.push(RunningLogZ {
@@ -155,10 +217,16 @@ impl Session {
             return Err(KilnError::usage("the run has not finished yet")
                 .with_hint("run and absorb every step first"));
         }
+        let Some(lead) = &self.lead else {
+            return Err(
+                KilnError::usage("only the leading session summarises a run")
+                    .with_hint("call finish on the session that searched for the modes"),
+            );
+        };
         finish_run(
             &self.spec,
-            &self.prepared,
-            self.grid.as_ref(),
+            &lead.prepared,
+            lead.grid.as_ref(),
             &self.stepper,
             self.settings.clone(),
         )

@@ -49,7 +49,7 @@ pub mod tempering;
 pub mod warmup;
 
 pub use options::{Integrator, Method, SamplerOptions};
-pub use plan::{Plan, Record};
+pub use plan::{decode_records, encode_records, Plan, Record};
 pub use series::Series;
 pub use stepper::{Step, Stepper};
 

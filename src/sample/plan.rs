@@ -74,6 +74,100 @@ pub struct Record {
     pub transitions: usize,
 }
 
+/// Numbers in one encoded record besides its three arrays.
+const RECORD_SCALARS: usize = 11;
+
+/// Encodes records as one flat array of numbers, the form in which the page's workers pass
+/// them to each other (a typed array, no text): per record `[chain, evaluations, eps, accept,
+/// divergences, leapfrogs, max_depth_hits, independence_accepted, iterations, transitions,
+/// len(z), z…, len(β), β…, δ…]` (δ has β's length). Every count is below 2⁵³, so the round
+/// trip through f64 is exact, and so are the floats: [`decode_records`] gives back the same bits.
+pub fn encode_records(records: &[Record]) -> Vec<f64> {
+    let mut out = Vec::with_capacity(
+        records
+            .iter()
+            .map(|r| RECORD_SCALARS + r.z.len() + 2 * r.beta.len())
+            .sum(),
+    );
+    for r in records {
+        out.extend_from_slice(&[
+            r.chain as f64,
+            r.evaluations as f64,
+            r.eps,
+            r.accept,
+            r.divergences as f64,
+            r.leapfrogs as f64,
+            r.max_depth_hits as f64,
+            r.independence_accepted as f64,
+            r.iterations as f64,
+            r.transitions as f64,
+            r.z.len() as f64,
+        ]);
+        out.extend_from_slice(&r.z);
+        out.push(r.beta.len() as f64);
+        out.extend_from_slice(&r.beta);
+        out.extend_from_slice(&r.delta);
+    }
+    out
+}
+
+/// Reads what [`encode_records`] wrote (several workers' arrays may be concatenated); an array
+/// that is not such an encoding is an error, never a panic.
+pub fn decode_records(data: &[f64]) -> Result<Vec<Record>, KilnError> {
+    let bad = |what: &str| {
+        KilnError::usage(format!(
+            "the records passed between workers are damaged: {what}"
+        ))
+        .with_hint("reload the page and run again")
+    };
+    let count = |v: f64, what: &str| -> Result<usize, KilnError> {
+        if v.is_finite() && v >= 0.0 && v.fract() == 0.0 && v < 9.007_199_254_740_992e15 {
+            Ok(v as usize)
+        } else {
+            Err(bad(what))
+        }
+    };
+    let mut records = Vec::new();
+    let mut at = 0;
+    while at < data.len() {
+        if data.len() - at < RECORD_SCALARS {
+            return Err(bad("a record is cut short"));
+        }
+        let h = &data[at..at + RECORD_SCALARS];
+        at += RECORD_SCALARS;
+        let nz = count(h[10], "length of z")?;
+        if data.len() - at < nz + 1 {
+            return Err(bad("z is cut short"));
+        }
+        let z = data[at..at + nz].to_vec();
+        at += nz;
+        let nb = count(data[at], "length of β")?;
+        at += 1;
+        if (data.len() - at) / 2 < nb {
+            return Err(bad("β or δ is cut short"));
+        }
+        let beta = data[at..at + nb].to_vec();
+        let delta = data[at + nb..at + 2 * nb].to_vec();
+        at += 2 * nb;
+        records.push(Record {
+            chain: count(h[0], "chain")?,
+            evaluations: count(h[1], "evaluations")? as u64,
+            eps: h[2],
+            accept: h[3],
+            divergences: count(h[4], "divergences")?,
+            leapfrogs: count(h[5], "leapfrogs")? as u64,
+            max_depth_hits: count(h[6], "depth limits")?,
+            independence_accepted: count(h[7], "independence moves")?,
+            iterations: count(h[8], "iterations")?,
+            transitions: count(h[9], "transitions")?,
+            z,
+            beta,
+            delta,
+        });
+    }
+    Ok(records)
+}
+
 impl Plan {
     pub fn new(
         modes: Vec<Mode>,
@@ -282,5 +376,68 @@ mod tests {
             new.x
         );
         assert_eq!(plan.laplace.base.components.len(), 2);
+    }
+}
+
+#[cfg(test)]
+mod encoding_tests {
+    use super::*;
+
+    fn record(chain: usize, n: usize, dim: usize) -> Record {
+        Record {
+            chain,
+            evaluations: 123_456_789_012,
+            eps: 0.1 + 1e-17 * chain as f64,
+            z: (0..n * dim)
+                .map(|i| (i as f64 * 0.37 - 1.0) / 3.0)
+                .collect(),
+            beta: (0..n).map(|i| 1.0 / (i as f64 + 7.0)).collect(),
+            delta: (0..n).map(|i| -(i as f64) * 1.000_000_1e3).collect(),
+            accept: 2.0 / 3.0,
+            divergences: 4,
+            leapfrogs: 98_765,
+            max_depth_hits: 1,
+            independence_accepted: 17,
+            iterations: n,
+            transitions: n.saturating_sub(1),
+        }
+    }
+
+    #[test]
+    fn records_round_trip_bit_for_bit() {
+        let rs = [record(0, 5, 3), record(1, 0, 3), record(2, 9, 3)];
+        // Two workers' arrays concatenated read back as one list.
+        let mut flat = encode_records(&rs[..1]);
+        flat.extend(encode_records(&rs[1..]));
+        let back = decode_records(&flat).unwrap();
+        assert_eq!(back.len(), 3);
+        for (a, b) in rs.iter().zip(&back) {
+            assert_eq!(
+                serde_json::to_string(a).unwrap(),
+                serde_json::to_string(b).unwrap()
+            );
+            let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+            assert_eq!(bits(&a.z), bits(&b.z));
+            assert_eq!(bits(&a.beta), bits(&b.beta));
+            assert_eq!(bits(&a.delta), bits(&b.delta));
+            assert_eq!(a.eps.to_bits(), b.eps.to_bits());
+        }
+    }
+
+    #[test]
+    fn damaged_records_are_errors() {
+        let flat = encode_records(&[record(0, 4, 2)]);
+        for cut in 1..flat.len() {
+            assert!(decode_records(&flat[..cut]).is_err(), "cut at {cut}");
+        }
+        let mut bad = flat.clone();
+        bad[0] = -1.0;
+        assert!(decode_records(&bad).is_err());
+        bad[0] = f64::NAN;
+        assert!(decode_records(&bad).is_err());
+        let mut huge = flat;
+        huge[10] = 1e300;
+        assert!(decode_records(&huge).is_err());
+        assert!(decode_records(&[]).unwrap().is_empty());
     }
 }

@@ -19,10 +19,11 @@ use crate::common::message::Message;
 use crate::common::rng::{Purpose, Stream};
 use crate::model::target::{Target, TargetEval, Transform};
 use nalgebra::DMatrix;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
-/// A local minimum of the energy in unconstrained coordinates.
-#[derive(Clone, Debug)]
+/// A local minimum of the energy in unconstrained coordinates. (De)serialisable so that the
+/// page's leading worker can hand its modes to the others: JSON with exact float round trips.
+#[derive(Clone, Debug, Serialize, Deserialize)]
 pub struct Mode {
     /// Location in unconstrained coordinates.
     pub z: Vec<f64>,
@@ -44,7 +45,7 @@ pub struct Mode {
 }
 
 /// How a mode was first found.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum FoundBy {
     /// A scattered start.
