@@ -168,38 +168,50 @@ fn the_gauge_demo_agrees_and_matches_its_closed_form() {
     assert_matches(demo, &r, outside("demo_values.json", demo));
 }
 
-/// Demos in three to five unknowns without a grid check whose importance check abstains with
-/// the demo's own seed (its weights' Pareto k̂ about 0.56, just above the limit of 0.5; with
-/// other seeds it often votes and agrees): the verdict is "not enough evidence", not "agree".
-/// This test holds them to that, so that the day they agree it fails and moves them to the
-/// tests above; the cultivar demo's log Z is also held to its exact value.
 #[test]
-fn the_demos_without_a_voting_check_say_so() {
-    for demo in [
-        "seed-lengths-three-cultivars.json",
-        "fish-cohorts-label-switching.json",
-        "decay-two-isotopes-background.json",
-    ] {
-        assert_notes_say_what_to_look_at(demo);
-        let r = run_demo(demo);
-        let v = &r["verdict"];
-        assert_eq!(v["state"], "not_enough_evidence", "{demo}: {v}");
-        assert!(v["voted"].as_array().unwrap().is_empty(), "{demo}: {v}");
-        let importance = v["abstained"]
-            .as_array()
+fn the_cultivar_demo_agrees_and_matches_its_exact_value() {
+    let demo = "seed-lengths-three-cultivars.json";
+    assert_notes_say_what_to_look_at(demo);
+    let r = run_demo(demo);
+    assert_agree(demo, &r);
+    assert_matches(demo, &r, outside("demo_values.json", demo));
+}
+
+/// No outside value exists for the fish demo's log Z (four unknowns, label switching); its
+/// importance check must vote (its weights' tail bounded, Pareto k̂ ≤ 0.5) and agree.
+#[test]
+fn the_fish_demo_agrees() {
+    let demo = "fish-cohorts-label-switching.json";
+    assert_notes_say_what_to_look_at(demo);
+    let r = run_demo(demo);
+    assert_agree(demo, &r);
+    let voted = r["verdict"]["voted"].as_array().unwrap();
+    assert!(voted.iter().any(|c| c == "importance"), "{}", r["verdict"]);
+}
+
+/// The two-isotope demo (five unknowns, no grid check) is one whose importance weights do have a
+/// heavy tail (Pareto k̂ 0.6–1.1 over seeds 1–3 with 64 000 draws): the check abstains and the
+/// verdict says "not enough evidence", not "agree". This test holds it to that, so that the
+/// day it agrees it fails and moves to the tests above.
+#[test]
+fn the_isotope_demo_says_no_check_could_vote() {
+    let demo = "decay-two-isotopes-background.json";
+    assert_notes_say_what_to_look_at(demo);
+    let r = run_demo(demo);
+    let v = &r["verdict"];
+    assert_eq!(v["state"], "not_enough_evidence", "{demo}: {v}");
+    assert!(v["voted"].as_array().unwrap().is_empty(), "{demo}: {v}");
+    let importance = v["abstained"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|a| a["check"] == "importance")
+        .unwrap_or_else(|| panic!("{demo}: the importance check abstains: {v}"));
+    assert!(
+        importance["reason"]
+            .as_str()
             .unwrap()
-            .iter()
-            .find(|a| a["check"] == "importance")
-            .unwrap_or_else(|| panic!("{demo}: the importance check abstains: {v}"));
-        assert!(
-            importance["reason"]
-                .as_str()
-                .unwrap()
-                .contains("heavy tail"),
-            "{demo}: {importance}"
-        );
-        if demo == "seed-lengths-three-cultivars.json" {
-            assert_matches(demo, &r, outside("demo_values.json", demo));
-        }
-    }
+            .contains("heavy tail"),
+        "{demo}: {importance}"
+    );
 }

@@ -28,8 +28,9 @@ use crate::sample::{SamplerOptions, Stepper};
 use crate::search::Coverage;
 use serde::{Deserialize, Serialize};
 
-/// Draws of the importance-sampling cross-check.
-pub const IS_DRAWS: usize = 16000;
+/// Draws of the importance-sampling cross-check: enough for its Pareto k̂ to tell bounded weights
+/// from a heavy tail on the demos (measured, src/TUNING.md), about 3 % of a default run's cost.
+pub const IS_DRAWS: usize = 64_000;
 
 /// What `kiln run` reports: the run's identity and settings, the estimates (flattened into
 /// the same JSON object), the cross-checks and the messages.

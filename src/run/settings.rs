@@ -20,8 +20,6 @@ pub const DEFAULT_WARMUP: usize = 500;
 pub const DEFAULT_DRAWS: usize = 1000;
 /// The default average acceptance of the Hamiltonian moves that warm-up aims the step size at.
 pub const DEFAULT_ACCEPTANCE_GOAL: f64 = 0.8;
-/// Draws of the importance-sampling cross-check.
-pub const IS_DRAWS: usize = 4000;
 /// Most values the kept draws may hold in memory (draws × chains × (unknowns + 3)).
 pub const MAX_KEPT_VALUES: usize = 50_000_000;
 
