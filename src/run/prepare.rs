@@ -128,9 +128,15 @@ pub struct Prepared {
 
 /// Builds the target, finds its modes and the Laplace approximation.
 pub fn prepare(spec: &Spec) -> Result<Prepared, KilnError> {
+    prepare_with_scan_work(spec, crate::search::scan::SCAN_WORK)
+}
+
+/// [`prepare`] with another work budget for the dense scan (tape instructions).
+pub fn prepare_with_scan_work(spec: &Spec, scan_work: f64) -> Result<Prepared, KilnError> {
     let target = Target::from_spec(spec)?;
     let seed = spec.settings.seed.unwrap_or(DEFAULT_SEED);
     let mut opts = SearchOptions::default_for(target.dim(), seed);
+    opts.scan_work = scan_work;
     if let Some(s) = spec.settings.starts {
         // An explicit number of starts is honoured in full.
         opts.max_starts = s;
@@ -168,7 +174,8 @@ pub fn check(spec: &Spec) -> Result<CheckOutcome, KilnError> {
 /// [`check`] with another work budget for the grid quadrature (tape instructions); the fuzz
 /// targets use a small one so that each case stays quick under instrumentation.
 pub fn check_with_grid_budget(spec: &Spec, grid_work: f64) -> Result<CheckOutcome, KilnError> {
-    let p = prepare(spec)?;
+    // The same budget bounds the dense scan, so that a small budget keeps the whole check small.
+    let p = prepare_with_scan_work(spec, grid_work.min(crate::search::scan::SCAN_WORK))?;
     let masses = p.laplace.masses();
     let modes = p
         .search

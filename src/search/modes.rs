@@ -316,7 +316,7 @@ pub fn find_modes(target: &Target, opts: SearchOptions) -> Result<ModeSearch, Ki
             modes.len()
         ));
     }
-    let scanned = scan(target, &mut modes)?;
+    let scanned = scan(target, &mut modes, opts.scan_work)?;
     let scan_new: usize = scanned.iter().map(|s| s.new_modes).sum();
     if scan_new > 0 {
         notes.push(format!(

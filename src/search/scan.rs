@@ -207,14 +207,18 @@ pub fn scan_applies(target: &Target) -> bool {
 /// half the budget goes to a finer grid over the part near them (each mode ± [`MODE_REACH`]
 /// standard deviations) and half to the whole region. Returns what each grid did (empty when
 /// the scan does not apply).
-pub fn scan(target: &Target, modes: &mut Vec<Mode>) -> Result<Vec<ScanSummary>, KilnError> {
+pub fn scan(
+    target: &Target,
+    modes: &mut Vec<Mode>,
+    scan_work: f64,
+) -> Result<Vec<ScanSummary>, KilnError> {
     if !scan_applies(target) || modes.is_empty() {
         return Ok(Vec::new());
     }
     let d = target.dim();
     let wide = search_axes(target, modes);
     let work = target.evaluator_work().max(1) as f64;
-    let budget = (SCAN_WORK / work).min(MAX_SCAN_POINTS[d - 1] as f64);
+    let budget = (scan_work / work).min(MAX_SCAN_POINTS[d - 1] as f64);
     let widths = narrowest_widths(target, modes, &wide);
     let near = near_axes(target, modes, &wide);
     let share: f64 = near

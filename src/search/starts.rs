@@ -17,6 +17,8 @@ pub struct SearchOptions {
     /// start, as when the user asks for a number of starts).
     pub stop_rule: bool,
     pub seed: u64,
+    /// Work budget of the dense scan, in tape instructions (`scan::SCAN_WORK` by default).
+    pub scan_work: f64,
 }
 
 impl SearchOptions {
@@ -28,6 +30,7 @@ impl SearchOptions {
             min_starts: 40 + 20 * dim,
             stop_rule: true,
             seed,
+            scan_work: super::scan::SCAN_WORK,
         }
     }
 }

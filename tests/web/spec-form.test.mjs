@@ -9,7 +9,8 @@ import { columnsToCsv } from '../../www/csv.js';
 import { DEMOS } from './demos.mjs';
 
 // The page shows these run settings when a spec leaves them out (the defaults in the form).
-const SHOWN_DEFAULTS = { chains: 4, draws: 2000, warmup: 1000, method: 'alternating', integrator: 'nuts' };
+// The engine's defaults (src/run/settings.rs: 8 chains × (500 warm-up + 1000 kept draws)).
+const SHOWN_DEFAULTS = { chains: 8, draws: 1000, warmup: 500, method: 'alternating', integrator: 'nuts' };
 
 test('every demo survives spec -> form -> spec (the shown defaults filled in)', () => {
   for (const { file, spec } of DEMOS) {
@@ -68,7 +69,7 @@ test('keys the form cannot show are kept verbatim and come back', () => {
     energy: 'x',
     log_density: 'ignored by the form',
     data: { a: [1, '2'] },
-    settings: { tune: true, seed: 7, chains: 2, draws: 2000, warmup: 1000, method: 'alternating', integrator: 'nuts' },
+    settings: { tune: true, seed: 7, chains: 2, draws: 1000, warmup: 500, method: 'alternating', integrator: 'nuts' },
     extra_key: [1],
   });
 });
@@ -152,7 +153,7 @@ test('vectors and priors: a size, element names or a prior in the unknowns table
 
 test('settings: unknown method and integrator fall back to the defaults', () => {
   const s = formToSpec(emptyForm(), { ...DEFAULT_SETTINGS, method: 'other', integrator: 'hmc', seed: ' 12 ' }).settings;
-  assert.deepEqual(s, { seed: 12, chains: 4, draws: 2000, warmup: 1000, method: 'alternating', integrator: 'hmc' });
+  assert.deepEqual(s, { seed: 12, chains: 8, draws: 1000, warmup: 500, method: 'alternating', integrator: 'hmc' });
   assert.deepEqual(SETTING_KEYS, ['seed', 'chains', 'draws', 'warmup', 'method', 'integrator']);
 });
 
