@@ -70,12 +70,18 @@ fn cases() -> Vec<Case> {
 /// Each group's weighted share of the draws (computed here, not by `Groups::largest_error`).
 fn shares(groups: &Groups, draws: &kiln::bench::baselines::Draws) -> Vec<f64> {
     let n = groups.masses().unwrap().len();
-    let top = draws.log_w.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
+    let top = draws
+        .log_w
+        .iter()
+        .cloned()
+        .fold(f64::NEG_INFINITY, f64::max);
     let mut share = vec![0.0; n];
     let mut total = 0.0;
     for (i, lw) in draws.log_w.iter().enumerate() {
         let w = (lw - top).exp();
-        share[groups.group(&draws.x[i * draws.dim..(i + 1) * draws.dim]).min(n - 1)] += w;
+        share[groups
+            .group(&draws.x[i * draws.dim..(i + 1) * draws.dim])
+            .min(n - 1)] += w;
         total += w;
     }
     share.iter().map(|s| s / total).collect()
@@ -136,7 +142,10 @@ fn check_log_z(what: &str, o: &BaselineRun, truth: f64, tol: f64, budget: u64) {
         o.tuning
     );
     eprintln!("{what}: log Z error {err:+.4}, SE {:.4}", o.log_z_se);
-    assert!(err.abs() < tol, "{what}: error {err:+.4} is more than {tol}");
+    assert!(
+        err.abs() < tol,
+        "{what}: error {err:+.4} is more than {tol}"
+    );
     // Budgets are honest: within a few transitions of the budget, never far past it.
     assert!(
         o.evaluations <= budget + budget / 50 && o.evaluations >= budget * 8 / 10,
@@ -187,7 +196,10 @@ fn plain_nuts_reports_masses_but_no_log_z() {
         .map(|(g, e)| (g - e).abs())
         .fold(0.0, f64::max);
     let reported = c.groups.largest_error(&o.draws).unwrap();
-    assert!((reported - largest).abs() < 1e-12, "{reported} vs {largest}");
+    assert!(
+        (reported - largest).abs() < 1e-12,
+        "{reported} vs {largest}"
+    );
     // Plain NUTS at β = 1 never crosses the barriers between these clusters (10 sd apart): its
     // 4 chains, kept one after the other, each stay in the cluster they started in, so the
     // draws' cluster changes at most 3 times along the record.
@@ -228,7 +240,10 @@ fn kiln_at_a_budget_stops_near_it_and_gets_the_exact_log_z() {
                 c.log_z,
                 r.notes
             );
-            eprintln!("Kiln at {budget}: log Z error {err:+.4}, SE {:.4}", r.log_z_se);
+            eprintln!(
+                "Kiln at {budget}: log Z error {err:+.4}, SE {:.4}",
+                r.log_z_se
+            );
             assert!(err.abs() < c.tol, "Kiln at {budget}: error {err:+.4}");
             check_masses(&format!("Kiln at {budget}"), c, &r.draws);
         }

@@ -98,13 +98,19 @@ fn run_json_has_the_documented_fields_and_settings_apply() {
         (laplace - truth).abs() > 0.1,
         "the base is exact here ({laplace}): the test would not exercise tempering"
     );
-    assert!((lz - truth).abs() < 0.03, "log Z {lz} ± {se} vs exact {truth}");
+    assert!(
+        (lz - truth).abs() < 0.03,
+        "log Z {lz} ± {se} vs exact {truth}"
+    );
     assert!(se > 0.0 && se < 0.03, "SE {se}");
     assert!((v["exact_log_z"].as_f64().unwrap() - truth).abs() < 1e-12);
     // The grid check (independent of the sampler) against the same exact value, and its own
     // error estimate is honest about it.
     let grid = v["grid_log_z"].as_f64().expect("a grid value in 2-D");
-    assert!((grid - truth).abs() < GRID_TOL, "grid {grid} vs exact {truth}");
+    assert!(
+        (grid - truth).abs() < GRID_TOL,
+        "grid {grid} vs exact {truth}"
+    );
     let checks = v["cross_checks"].as_array().unwrap();
     let g = checks
         .iter()
@@ -116,7 +122,11 @@ fn run_json_has_the_documented_fields_and_settings_apply() {
         (grid - truth).abs() <= g_err.max(1e-9),
         "grid {grid} ± {g_err} vs exact {truth}"
     );
-    assert_eq!(v["verdict"]["state"], "agree", "{}", v["verdict"]["sentence"]);
+    assert_eq!(
+        v["verdict"]["state"], "agree",
+        "{}",
+        v["verdict"]["sentence"]
+    );
     // Options override the spec.
     let (code, out, _) = kiln(&[
         "run", &a, "--json", "--seed", "9", "--chains", "2", "--method", "joint",
@@ -158,7 +168,11 @@ fn compare_gives_the_log_bayes_factor() {
         v["bayes_factor"]["log_bayes_factor_se"].as_f64().unwrap(),
     );
     // A fixed bound (A's SE is about 0.01, B is one Gaussian whose base is exact): 0.04 nats.
-    assert!((lbf - 6f64.ln()).abs() < 0.04, "{lbf} ± {se} vs exact {}", 6f64.ln());
+    assert!(
+        (lbf - 6f64.ln()).abs() < 0.04,
+        "{lbf} ± {se} vs exact {}",
+        6f64.ln()
+    );
     assert!(se > 0.0 && se < 0.04, "SE {se}");
     let (code, text, _) = kiln(&["compare", &a, &b]);
     assert_eq!(code, 0);

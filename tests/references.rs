@@ -186,7 +186,10 @@ fn egg_crate_reference_file_is_resolved() {
     let published = &r["published"];
     assert_eq!(published["recalled_from_memory"], true);
     let p = published["log_z"].as_f64().unwrap();
-    assert!((p - value).abs() < 0.03, "published {p} vs computed {value}");
+    assert!(
+        (p - value).abs() < 0.03,
+        "published {p} vs computed {value}"
+    );
 }
 
 /// Two Gaussian shells: each ring exp(−(|p − c| − 2)²/(2·0.1²))/√(2π·0.1²), centres (±3.5, 0),
@@ -392,7 +395,12 @@ fn mixture_log_density(components: &Value, x: &[f64]) -> f64 {
     let mut terms = Vec::new();
     for c in components.as_array().unwrap() {
         let w = c["weight"].as_f64().unwrap();
-        let mean: Vec<f64> = c["mean"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
+        let mean: Vec<f64> = c["mean"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_f64().unwrap())
+            .collect();
         let mut cov = vec![vec![0.0; d]; d];
         if let Some(sd) = c.get("sd") {
             for (i, s) in sd.as_array().unwrap().iter().enumerate() {
@@ -410,7 +418,11 @@ fn mixture_log_density(components: &Value, x: &[f64]) -> f64 {
         for i in 0..d {
             for j in 0..=i {
                 let s: f64 = (0..j).map(|k| l[i][k] * l[j][k]).sum();
-                l[i][j] = if i == j { (cov[i][i] - s).sqrt() } else { (cov[i][j] - s) / l[j][j] };
+                l[i][j] = if i == j {
+                    (cov[i][i] - s).sqrt()
+                } else {
+                    (cov[i][j] - s) / l[j][j]
+                };
             }
         }
         let mut y = vec![0.0; d];

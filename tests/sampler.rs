@@ -71,12 +71,17 @@ fn spec_of_case(c: &Value) -> Value {
 /// and the Laplace base misses part of its mass: the tempering correction has work to do.
 /// Returns the spec, the clusters' cores, their exact masses (weight shares: the callers keep
 /// the clusters more than 8 skirt sds apart) and the exact log Z = log Σ w.
-fn skewed_clusters(clusters: &[(f64, Vec<f64>, Vec<Vec<f64>>)]) -> (Value, Vec<Vec<f64>>, Vec<f64>, f64) {
+fn skewed_clusters(
+    clusters: &[(f64, Vec<f64>, Vec<Vec<f64>>)],
+) -> (Value, Vec<Vec<f64>>, Vec<f64>, f64) {
     let total: f64 = clusters.iter().map(|c| c.0).sum();
     let mut comps = Vec::new();
     let mut centres = Vec::new();
     for (w, m, cov) in clusters {
-        let wide: Vec<Vec<f64>> = cov.iter().map(|r| r.iter().map(|v| 4.0 * v).collect()).collect();
+        let wide: Vec<Vec<f64>> = cov
+            .iter()
+            .map(|r| r.iter().map(|v| 4.0 * v).collect())
+            .collect();
         let mut m2 = m.clone();
         m2[0] += 0.5 * cov[0][0].sqrt();
         comps.push(json!({"weight": w / 2.0, "mean": m, "cov": cov}));
@@ -98,16 +103,32 @@ fn assert_base_not_exact(o: &RunOutcome, truth: f64, gap: f64, what: &str) {
 }
 
 /// Each cluster's mass (the found modes nearest its centre, added up) within `tol` of exact.
-fn assert_cluster_masses(o: &RunOutcome, centres: &[Vec<f64>], exact: &[f64], tol: f64, what: &str) {
+fn assert_cluster_masses(
+    o: &RunOutcome,
+    centres: &[Vec<f64>],
+    exact: &[f64],
+    tol: f64,
+    what: &str,
+) {
     let mut got = vec![0.0; centres.len()];
     for m in &o.est.modes {
-        let d2 = |c: &Vec<f64>| -> f64 { c.iter().zip(&m.location).map(|(a, b)| (a - b) * (a - b)).sum() };
-        let k = (0..centres.len()).min_by(|&a, &b| d2(&centres[a]).total_cmp(&d2(&centres[b]))).unwrap();
+        let d2 = |c: &Vec<f64>| -> f64 {
+            c.iter()
+                .zip(&m.location)
+                .map(|(a, b)| (a - b) * (a - b))
+                .sum()
+        };
+        let k = (0..centres.len())
+            .min_by(|&a, &b| d2(&centres[a]).total_cmp(&d2(&centres[b])))
+            .unwrap();
         got[k] += m.mass;
     }
     eprintln!("{what}: cluster masses {got:.4?} vs exact {exact:.4?}");
     for (g, e) in got.iter().zip(exact) {
-        assert!((g - e).abs() < tol, "{what}: cluster mass {g} vs exact {e} (all {got:?})");
+        assert!(
+            (g - e).abs() < tol,
+            "{what}: cluster mass {g} vs exact {e} (all {got:?})"
+        );
     }
 }
 
@@ -117,8 +138,16 @@ fn assert_cluster_masses(o: &RunOutcome, centres: &[Vec<f64>], exact: &[f64], to
 fn separated_mixture_with_unequal_weights() {
     let (spec, centres, masses, truth) = skewed_clusters(&[
         (3.0, vec![0.0, 0.0], vec![vec![1.0, 0.6], vec![0.6, 2.0]]),
-        (1.0, vec![24.0, -14.0], vec![vec![0.5, -0.2], vec![-0.2, 0.3]]),
-        (0.4, vec![-16.0, 18.0], vec![vec![1.96, 0.0], vec![0.0, 0.81]]),
+        (
+            1.0,
+            vec![24.0, -14.0],
+            vec![vec![0.5, -0.2], vec![-0.2, 0.3]],
+        ),
+        (
+            0.4,
+            vec![-16.0, 18.0],
+            vec![vec![1.96, 0.0], vec![0.0, 0.81]],
+        ),
     ]);
     let o = run_spec(spec, quick(3));
     assert_base_not_exact(&o, truth, 0.1, "mixture");
@@ -139,7 +168,10 @@ fn separated_mixture_with_unequal_weights() {
 #[test]
 fn egg_crate_log_z() {
     let c = scipy_case("egg_crate");
-    let path = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/egg_crate_values.json");
+    let path = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/reference/egg_crate_values.json"
+    );
     let r: Value = serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap();
     let truth = r["log_z"].as_f64().unwrap();
     let o = run_spec(spec_of_case(&c), quick(1));
@@ -197,7 +229,7 @@ fn heavy_tailed_location_log_z() {
     let c = scipy_case("heavy_tailed_location");
     let o = run_spec(spec_of_case(&c), quick(6));
     let truth = c["log_z"].as_f64().unwrap();
-    eprintln!("heavy-tailed: Laplace {} vs {truth}", o.laplace_log_z);
+    assert_base_not_exact(&o, truth, 0.1, "heavy-tailed location");
     assert_log_z(&o, truth, 0.05, "heavy-tailed location");
 }
 
@@ -394,7 +426,11 @@ fn error_bar_with_control_variates_covers_the_truth() {
 #[test]
 fn joint_and_alternating_with_nuts_and_static_hmc() {
     let (spec, centres, masses, truth) = skewed_clusters(&[
-        (2.0, vec![-10.0, 0.0], vec![vec![0.49, 0.0], vec![0.0, 1.44]]),
+        (
+            2.0,
+            vec![-10.0, 0.0],
+            vec![vec![0.49, 0.0], vec![0.0, 1.44]],
+        ),
         (1.0, vec![10.0, 1.0], vec![vec![1.0, 0.5], vec![0.5, 1.0]]),
     ]);
     for method in ["joint", "alternating"] {
