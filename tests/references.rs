@@ -390,6 +390,7 @@ fn one_sided_truncated_normal_grid_log_z() {
 
 /// log Σ_k w_k N(x; μ_k, Σ_k), written here independently of Kiln (Cholesky by hand, the
 /// platform maths library): the density a mixture spec stands for.
+#[allow(clippy::disallowed_methods)]
 fn mixture_log_density(components: &Value, x: &[f64]) -> f64 {
     let d = x.len();
     let mut terms = Vec::new();

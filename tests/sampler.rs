@@ -71,9 +71,10 @@ fn spec_of_case(c: &Value) -> Value {
 /// and the Laplace base misses part of its mass: the tempering correction has work to do.
 /// Returns the spec, the clusters' cores, their exact masses (weight shares: the callers keep
 /// the clusters more than 8 skirt sds apart) and the exact log Z = log Σ w.
-fn skewed_clusters(
-    clusters: &[(f64, Vec<f64>, Vec<Vec<f64>>)],
-) -> (Value, Vec<Vec<f64>>, Vec<f64>, f64) {
+/// A cluster: its total weight, its core's mean and covariance.
+type Cluster = (f64, Vec<f64>, Vec<Vec<f64>>);
+
+fn skewed_clusters(clusters: &[Cluster]) -> (Value, Vec<Vec<f64>>, Vec<f64>, f64) {
     let total: f64 = clusters.iter().map(|c| c.0).sum();
     let mut comps = Vec::new();
     let mut centres = Vec::new();
