@@ -23,6 +23,9 @@ struct Case {
     is_valid: bool,
     spec: &'static str,
     log_z: f64,
+    /// A fixed bound on the log Z error (not the run's SE): half the error of losing the
+    /// lightest mode entirely (log(1 − its mass)), so a lost mode fails whatever the SE says.
+    tol: f64,
     groups: Groups,
 }
 
@@ -39,6 +42,7 @@ fn cases() -> Vec<Case> {
                 {"weight": 1.0, "mean": [0.5], "sd": [1.5]},
                 {"weight": 0.5, "mean": [14.0], "sd": [0.7]}]}"#,
             log_z: 2.5f64.ln(),
+            tol: 0.11, // lightest mode 0.2: log 0.8 = −0.223
             groups: Groups::Nearest {
                 centres: vec![vec![0.1], vec![14.0]],
                 masses: vec![0.8, 0.2],
@@ -54,12 +58,63 @@ fn cases() -> Vec<Case> {
                 {"weight": 0.4, "mean": [10.8, -8.0], "sd": [0.6, 0.5]},
                 {"weight": 0.3, "mean": [-9.0, 7.0], "sd": [1.0, 0.8]}]}"#,
             log_z: 4.5f64.ln(),
+            tol: 0.034, // lightest mode 0.3/4.5: log(1 − 0.067) = −0.069
             groups: Groups::Nearest {
                 centres: vec![vec![0.5, 0.0], vec![10.3, -8.0], vec![-9.0, 7.0]],
                 masses: vec![3.0 / 4.5, 1.2 / 4.5, 0.3 / 4.5],
             },
         },
     ]
+}
+
+/// Each group's weighted share of the draws (computed here, not by `Groups::largest_error`).
+fn shares(groups: &Groups, draws: &kiln::bench::baselines::Draws) -> Vec<f64> {
+    let n = groups.masses().unwrap().len();
+    let top = draws
+        .log_w
+        .iter()
+        .cloned()
+        .fold(f64::NEG_INFINITY, f64::max);
+    let mut share = vec![0.0; n];
+    let mut total = 0.0;
+    for (i, lw) in draws.log_w.iter().enumerate() {
+        let w = (lw - top).exp();
+        share[groups
+            .group(&draws.x[i * draws.dim..(i + 1) * draws.dim])
+            .min(n - 1)] += w;
+        total += w;
+    }
+    share.iter().map(|s| s / total).collect()
+}
+
+/// Every mode's mass near its exact weight share: within 25 % of it plus 0.01 (so a lost
+/// 0.067 mode, error 0.067 > 0.027, fails, and so does a 0.2 mode found at half its mass).
+fn check_masses(what: &str, c: &Case, draws: &kiln::bench::baselines::Draws) {
+    let exact = c.groups.masses().unwrap();
+    let got = shares(&c.groups, draws);
+    eprintln!("{what}: masses {got:.3?} vs exact {exact:.3?}");
+    for (g, e) in got.iter().zip(&exact) {
+        assert!(
+            (g - e).abs() <= 0.25 * e + 0.01,
+            "{what}: mass {g:.4} vs exact {e:.4} (all: {got:.4?})"
+        );
+    }
+}
+
+/// AIS's masses rest on the few dozen annealing runs a budget of 30 000 allows, whose weights
+/// are very uneven (seen: the 0.067 mode at 0.027 on one seed), so for AIS only this is held:
+/// every mode is found with at least a quarter of its mass (a lost mode fails), and no mass is
+/// off by more than 0.1.
+fn check_masses_found(what: &str, c: &Case, draws: &kiln::bench::baselines::Draws) {
+    let exact = c.groups.masses().unwrap();
+    let got = shares(&c.groups, draws);
+    eprintln!("{what}: masses {got:.3?} vs exact {exact:.3?}");
+    for (g, e) in got.iter().zip(&exact) {
+        assert!(
+            *g >= 0.25 * e && (g - e).abs() <= 0.1,
+            "{what}: mass {g:.4} vs exact {e:.4} (all: {got:.4?})"
+        );
+    }
 }
 
 fn prepared(c: &Case) -> (kiln::run::Prepared, Base) {
@@ -72,7 +127,7 @@ fn prepared(c: &Case) -> (kiln::run::Prepared, Base) {
     (p, base)
 }
 
-fn check_log_z(what: &str, o: &BaselineRun, truth: f64, budget: u64) {
+fn check_log_z(what: &str, o: &BaselineRun, truth: f64, tol: f64, budget: u64) {
     let err = o.log_z - truth;
     assert!(
         o.log_z_se.is_finite() && o.log_z_se > 0.0,
@@ -86,7 +141,11 @@ fn check_log_z(what: &str, o: &BaselineRun, truth: f64, budget: u64) {
         o.log_z_se,
         o.tuning
     );
-    assert!(err.abs() < 0.1, "{what}: error {err:+.4} is too large");
+    eprintln!("{what}: log Z error {err:+.4}, SE {:.4}", o.log_z_se);
+    assert!(
+        err.abs() < tol,
+        "{what}: error {err:+.4} is more than {tol}"
+    );
     // Budgets are honest: within a few transitions of the budget, never far past it.
     assert!(
         o.evaluations <= budget + budget / 50 && o.evaluations >= budget * 8 / 10,
@@ -102,20 +161,17 @@ fn ais_pt_and_is_get_exact_mixture_log_z_within_their_errors() {
         let (p, base) = prepared(&c);
         for seed in 1..=2 {
             let ais = annealed_importance_sampling(&p.target, &base, budget, seed);
-            check_log_z(&format!("AIS on {}", c.name), &ais, c.log_z, budget);
+            check_log_z(&format!("AIS on {}", c.name), &ais, c.log_z, c.tol, budget);
             let pt = parallel_tempering(&p.target, &base, budget, seed);
-            check_log_z(&format!("PT on {}", c.name), &pt, c.log_z, budget);
+            check_log_z(&format!("PT on {}", c.name), &pt, c.log_z, c.tol, budget);
             // Tempering also gets the masses.
-            for (name, o) in [("AIS", &ais), ("PT", &pt)] {
-                let e = c.groups.largest_error(&o.draws).unwrap();
-                assert!(e < 0.1, "{name} on {}: mass error {e}", c.name);
-            }
+            check_masses_found(&format!("AIS on {}", c.name), &c, &ais.draws);
+            check_masses(&format!("PT on {}", c.name), &c, &pt.draws);
             if c.is_valid {
                 let is = importance_sampling(&p.target, &base, budget, seed);
-                check_log_z(&format!("IS on {}", c.name), &is, c.log_z, budget);
+                check_log_z(&format!("IS on {}", c.name), &is, c.log_z, c.tol, budget);
                 assert_eq!(is.evaluations, budget);
-                let e = c.groups.largest_error(&is.draws).unwrap();
-                assert!(e < 0.1, "IS on {}: mass error {e}", c.name);
+                check_masses(&format!("IS on {}", c.name), &c, &is.draws);
             }
         }
     }
@@ -129,15 +185,33 @@ fn plain_nuts_reports_masses_but_no_log_z() {
     assert!(o.log_z.is_nan());
     assert!(!o.draws.is_empty());
     assert!(o.evaluations <= 21_000, "{} evaluations", o.evaluations);
-    let e = c.groups.largest_error(&o.draws).unwrap();
-    assert!((0.0..=1.0).contains(&e), "mass error {e}");
-    // Its draws stay in the modes they started in: with 4 chains, the shares are quarters.
-    let masses = c.groups.masses().unwrap();
-    let mut shares = vec![0.0; masses.len()];
-    for i in 0..o.draws.len() {
-        shares[c.groups.group(&o.draws.x[i * 2..i * 2 + 2])] += 1.0 / o.draws.len() as f64;
-    }
-    assert!((shares.iter().sum::<f64>() - 1.0).abs() < 1e-9);
+    // Masses are reported: every draw has a finite weight and falls in one of the groups, and
+    // the shares are those of the draws (largest_error agrees with the shares computed here).
+    assert!(o.draws.log_w.iter().all(|w| w.is_finite()));
+    let exact = c.groups.masses().unwrap();
+    let got = shares(&c.groups, &o.draws);
+    let largest = got
+        .iter()
+        .zip(&exact)
+        .map(|(g, e)| (g - e).abs())
+        .fold(0.0, f64::max);
+    let reported = c.groups.largest_error(&o.draws).unwrap();
+    assert!(
+        (reported - largest).abs() < 1e-12,
+        "{reported} vs {largest}"
+    );
+    // Plain NUTS at β = 1 never crosses the barriers between these clusters (10 sd apart): its
+    // 4 chains, kept one after the other, each stay in the cluster they started in, so the
+    // draws' cluster changes at most 3 times along the record.
+    let d = o.draws.dim;
+    let groups: Vec<usize> = (0..o.draws.len())
+        .map(|i| c.groups.group(&o.draws.x[i * d..(i + 1) * d]))
+        .collect();
+    let switches = groups.windows(2).filter(|w| w[0] != w[1]).count();
+    assert!(
+        switches <= 3,
+        "plain NUTS changed cluster {switches} times: it should stay where each chain started"
+    );
 }
 
 #[test]
@@ -166,8 +240,12 @@ fn kiln_at_a_budget_stops_near_it_and_gets_the_exact_log_z() {
                 c.log_z,
                 r.notes
             );
-            let e = c.groups.largest_error(&r.draws).unwrap();
-            assert!(e < 0.1, "Kiln at {budget}: mass error {e}");
+            eprintln!(
+                "Kiln at {budget}: log Z error {err:+.4}, SE {:.4}",
+                r.log_z_se
+            );
+            assert!(err.abs() < c.tol, "Kiln at {budget}: error {err:+.4}");
+            check_masses(&format!("Kiln at {budget}"), c, &r.draws);
         }
     }
 }

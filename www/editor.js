@@ -3,8 +3,9 @@
 //
 // Owns: writeFormToDom, wireForm, the unknowns rows (name, size or element names, bounds,
 // prior) and mixture rows, the data summary (the engine reads the CSV: `readCsv`), and
-// `changed` (after an edit: save, check, redraw). User text goes into inputs' values and text
-// nodes only.
+// `changed` (after an edit: save, check, redraw), and large pastes into the data table (counted
+// in slices with progress while the page keeps answering, refused above the limit of 10^6
+// cells with the table left as it was). User text goes into inputs' values and text nodes only.
 // Must not touch: the results pane, runs, the engine beyond reading the data for the summary
 // (checking.js asks it to check).
 import { state, activeSlot } from './state.js';
@@ -164,6 +165,79 @@ function nextName(vars) {
   for (let i = 1; ; i++) if (!used.has('x' + i)) return 'x' + i;
 }
 
+// Pasting a large table: the engine's limits (README: at most 10^6 cells, 64 MiB of CSV).
+const CELL_LIMIT = 1000000;
+const CHAR_LIMIT = 64 * 1024 * 1024;
+// Pastes shorter than this go in as the browser does them.
+const LARGE_PASTE = 100000;
+// Characters counted between two pauses that let the page answer input.
+const PASTE_SLICE = 1 << 19;
+
+// The number of fields in a CSV header line, with the delimiter the engine would take from it
+// (the one of , ; tab that splits it most), counting only delimiters outside quotes.
+function headerFields(line) {
+  let best = 1;
+  for (const d of [',', ';', '\t']) {
+    let n = 1;
+    let quoted = false;
+    for (let i = 0; i < line.length; i++) {
+      const c = line[i];
+      if (c === '"') quoted = !quoted;
+      else if (c === d && !quoted) n++;
+    }
+    if (n > best) best = n;
+  }
+  return best;
+}
+
+let pasteToken = 0;
+
+// Counts the rows (non-blank lines after the header) of `text` in slices, showing progress in
+// the data summary; then either puts the text in the slot or refuses it, saying why.
+async function pasteLarge(slot, text) {
+  const token = ++pasteToken;
+  const node = $('data-summary');
+  const limitText = 'the limit is ' + fmtInt(CELL_LIMIT) + ' cells (rows × columns)';
+  const refuse = function (what) {
+    notice(['The pasted table was not used: ' + what + '; ' + limitText + '. The data table is as it was.'], { bad: true });
+    if (activeSlot() === slot) renderDataSummary();
+  };
+  if (text.length > CHAR_LIMIT) { refuse('it is ' + fmtInt(text.length) + ' characters long, more than 64 MiB'); return; }
+  document.body.dataset.paste = 'reading';
+  let firstEnd = text.indexOf('\n');
+  if (firstEnd < 0) firstEnd = text.length;
+  const columns = headerFields(text.slice(0, firstEnd));
+  let rows = 0;
+  let pos = firstEnd + 1;
+  while (pos < text.length) {
+    const stop = Math.min(text.length, pos + PASTE_SLICE);
+    while (pos < stop) {
+      let end = text.indexOf('\n', pos);
+      if (end < 0) end = text.length;
+      // A blank line (or one of delimiters only) is skipped by the engine: not a row.
+      for (let i = pos; i < end; i++) {
+        const c = text.charCodeAt(i);
+        if (c !== 32 && c !== 9 && c !== 13 && c !== 44 && c !== 59) { rows++; break; }
+      }
+      pos = end + 1;
+    }
+    if (rows * columns > CELL_LIMIT) break;
+    if (activeSlot() === slot) node.textContent = 'Reading the pasted data: ' + Math.round(100 * Math.min(pos, text.length) / text.length) + ' % (' + fmtInt(rows) + ' rows of ' + columns + ' columns so far; ' + limitText + ')…';
+    await new Promise(function (r) { setTimeout(r, 0); });
+    if (token !== pasteToken) return;
+  }
+  document.body.dataset.paste = 'done';
+  if (rows * columns > CELL_LIMIT) {
+    refuse('it has ' + (pos < text.length ? 'more than ' : '') + fmtInt(rows * columns) + ' cells (' + fmtInt(rows) + ' rows × ' + columns + ' columns)');
+    return;
+  }
+  slot.form.dataCsv = text;
+  if (activeSlot() === slot) $('data-input').value = text;
+  notice(['Pasted ' + fmtInt(rows) + ' rows × ' + columns + ' columns (' + fmtInt(rows * columns) + ' cells; ' + limitText + ').']);
+  if (activeSlot() === slot) changed();
+  else { saveSoon(); scheduleCheck(state.slots.A === slot ? 'A' : 'B'); }
+}
+
 /** Connects the editor's fields to the active slot. */
 export function wireForm() {
   $('title-input').addEventListener('input', function (ev) { activeSlot().form.title = ev.target.value; changed(); });
@@ -171,6 +245,14 @@ export function wireForm() {
   $('formula-input').addEventListener('input', function (ev) { activeSlot().form.formula = ev.target.value; changed(); });
   wireSuggestions($('formula-input'));
   $('data-input').addEventListener('input', function (ev) { activeSlot().form.dataCsv = ev.target.value; changed(); });
+  $('data-input').addEventListener('paste', function (ev) {
+    const text = ev.clipboardData ? ev.clipboardData.getData('text/plain') : '';
+    if (text.length < LARGE_PASTE) return; // the browser pastes it as usual
+    ev.preventDefault();
+    const box = ev.target;
+    const before = box.value;
+    pasteLarge(activeSlot(), before.slice(0, box.selectionStart) + text + before.slice(box.selectionEnd));
+  });
   for (const r of document.querySelectorAll('input[name=kind]')) {
     r.addEventListener('change', function (ev) {
       const f = activeSlot().form;

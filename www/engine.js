@@ -25,6 +25,9 @@ function internalError(message) {
     rendered: 'error: ' + message + '\n' };
 }
 
+// Numbers the workers' life locks.
+let channelCount = 0;
+
 // One worker and its pending calls, matched by id.
 function Channel(factory, initMessage, initTransfer) {
   this.worker = factory();
@@ -48,8 +51,19 @@ function Channel(factory, initMessage, initTransfer) {
   this.worker.onmessageerror = function () {
     self.failAll(internalError('a message from the engine worker could not be read'));
   };
-  this.ready = this.call(initMessage, initTransfer);
-  this.ready.catch(function () { /* reported by the calls that follow */ });
+  // A worker that dies without a word (out of memory, shut down by the browser) sends no error
+  // event: it holds a Web Lock for its life, and this request for the same lock is granted
+  // when it ends. A worker this page terminated is `dead` by then and is not reported.
+  const lifeLock = typeof navigator !== 'undefined' && navigator.locks ? 'kiln-worker-' + Math.random().toString(36).slice(2) + '-' + (++channelCount) : null;
+  this.ready = this.call(Object.assign({}, initMessage, { lifeLock: lifeLock }), initTransfer);
+  this.ready.then(function (msg) {
+    if (!msg || !msg.lifeLock) return;
+    navigator.locks.request(lifeLock, function () {
+      if (self.dead) return;
+      self.dead = true;
+      self.failAll(internalError('the engine worker stopped without a word (it may have run out of memory, or the browser shut it down)'));
+    }).catch(function () { /* no lock: only error events report a crash */ });
+  }, function () { /* reported by the calls that follow */ });
 }
 Channel.prototype.call = function (msg, transfer) {
   if (this.dead) return Promise.reject({ kind: 'cancelled', message: 'stopped', rendered: '' });

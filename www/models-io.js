@@ -13,7 +13,7 @@ import { buildSinglePage, embedded } from './single.js';
 import { readFileText, download, slug } from './files.js';
 import { notice, noticeErrors } from './notice.js';
 import { $, el } from './dom.js';
-import { replaceModels, replaceSlotModel } from './undo.js';
+import { replaceModels, replaceSlotModel, pendingUndo } from './undo.js';
 import { afterModelReplaced } from './slots.js';
 import { fmtInt, messageOf } from './format.js';
 
@@ -114,7 +114,10 @@ export async function applyHash() {
       clean();
       return true;
     } catch (e) {
-      notice(['This share link could not be opened:', el('pre', { 'data-testid': 'share-error' }, 'error: ' + messageOf(e))], { bad: true });
+      // The models in the page are untouched; an Undo offered before stays on offer.
+      const undo = pendingUndo();
+      notice(['This share link could not be opened; the models in the page are unchanged' + (undo ? ' (the last change can still be undone)' : '') + '.',
+        el('pre', { 'data-testid': 'share-error' }, 'error: ' + messageOf(e))], { bad: true, action: undo || undefined });
       clean();
       return false;
     }

@@ -1,7 +1,9 @@
 // Runs: starting one (or A then B), following its progress, cancelling it, and the run bar.
 //
 // Owns: startRun, cancelRun, renderRunBar, runIsStale, setRunState (body[data-run-state]),
-// the slot's `run` and state.running / state.queue.
+// the slot's `run` and state.running / state.queue. A run that fails (the engine reports an
+// error, traps, or a worker dies) gives the slot back its earlier finished result, if it had
+// one, and says in the notice bar what happened; the model and settings are never touched.
 // Must not touch: the results pane (report-view.js draws a finished run) or the form.
 import { state, activeSlot, buildSpec, unknownNames } from './state.js';
 import { engine, engineIsReady } from './engine-load.js';
@@ -9,9 +11,10 @@ import { switchSlot } from './slots.js';
 import { localCheck, renderCheck } from './checking.js';
 import { ensureGrid } from './grid.js';
 import { renderAll, scheduleRender } from './render-loop.js';
-import { $ } from './dom.js';
 import { isNum } from './numbers.js';
 import { fmtInt, fmtDuration } from './format.js';
+import { notice } from './notice.js';
+import { $, el } from './dom.js';
 
 // The engine's plot draws -> {names, cols: one array per unknown, mode, beta}, or null.
 function normaliseDraws(d, D) {
@@ -48,7 +51,9 @@ export async function startRun(slotId, queueRest) {
   }
   state.queue = queueRest || [];
   const json = JSON.stringify(built.spec);
-  const run = { status: 'running', specJson: json, overrides: built.settings, started: performance.now(), phase: 'Starting…', info: null, progress: null, result: null, draws: null, csv: null, error: null };
+  // The slot's latest finished result, kept to be shown again if this run fails.
+  const earlier = slot.run && slot.run.status === 'done' ? slot.run : slot.run && slot.run.earlier ? slot.run.earlier : null;
+  const run = { status: 'running', specJson: json, overrides: built.settings, started: performance.now(), phase: 'Starting…', info: null, progress: null, result: null, draws: null, csv: null, error: null, earlier: earlier };
   slot.run = run;
   const running = { slotId: slotId, handle: null, cancelled: false };
   state.running = running;
@@ -76,24 +81,38 @@ export async function startRun(slotId, queueRest) {
     const D = fin.result && Array.isArray(fin.result.unknowns) ? fin.result.unknowns.length : unknownNames(slot).length;
     Object.assign(run, {
       status: 'done', result: fin.result, draws: normaliseDraws(fin.draws, D), csv: fin.csv,
-      progress: fin.progress || run.progress, elapsed: fin.elapsed, workers: fin.workers,
+      progress: fin.progress || run.progress, elapsed: fin.elapsed, workers: fin.workers, earlier: null,
     });
     finishRun(slot, run, running, null);
   }, function (e) { finishRun(slot, run, running, e); });
 }
 
 function finishRun(slot, run, running, e) {
+  let failed = false;
   if (e) {
     run.elapsed = performance.now() - run.started;
-    if (e.kind === 'cancelled') run.status = 'cancelled'; else { run.status = 'error'; run.error = e; }
+    if (e.kind === 'cancelled') run.status = 'cancelled'; else { run.status = 'error'; run.error = e; failed = true; }
     state.queue = [];
   }
   if (state.running === running) state.running = null;
   setRunState(run.status);
+  if (failed) reportFailure(slot, run);
   if (run.status === 'done') ensureGrid(state.slots.A === slot ? 'A' : 'B');
   renderAll();
   const next = state.queue.shift();
   if (next) startRun(next, state.queue);
+}
+
+// A failed run: the notice says what happened and that nothing was lost; the earlier result
+// (if any) is shown again, marked stale by the report when the model changed since.
+function reportFailure(slot, run) {
+  const id = state.slots.A === slot ? 'A' : 'B';
+  const e = run.error || {};
+  const text = String(e.rendered || ('error: ' + (e.message || String(e)) + '\n'));
+  const kept = run.earlier ? 'Your model, its settings and the earlier result are kept (shown below)' : 'Your model and its settings are kept';
+  if (run.earlier && slot.run === run) slot.run = run.earlier;
+  notice(['The run of model ' + id + ' stopped before it finished. ' + kept + '; Run starts it again with new workers.',
+    el('pre', { 'data-testid': 'run-failure' }, text)], { bad: true });
 }
 
 /** Stops the running job at once (its workers are terminated) and forgets the queue. */

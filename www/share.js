@@ -6,6 +6,9 @@
 // Owns: sharedModels (the {spec, settings} of A and B, or what must be fixed first),
 // sharePayload, encodeShared / decodeShared (payload <-> `#spec=` parameter), readShared
 // (checks a decoded object and turns it into forms; a bad model B is named), linkBase.
+// Every way a link can be bad (not base64url, cut short, damaged, not UTF-8, not JSON, not a
+// Kiln model, a bad model) ends in an Error with a message in plain words: nothing else escapes
+// decodeShared (fuzzed in tests/web/share-fuzz.test.mjs).
 // Must not touch: the DOM, the page state or storage (no DOM; uses CompressionStream, which
 // browsers and Node both have; unit-tested under Node).
 import { SETTING_KEYS, formToSpec, specToForm } from './spec-form.js';
@@ -42,21 +45,34 @@ async function deflate(text) {
   return new Uint8Array(await new Response(stream).arrayBuffer());
 }
 
+const DAMAGED = 'the link is damaged or cut short (its compressed part does not unpack); copy the whole link again';
+
 async function inflate(bytes, limit) {
+  if (!bytes.length) throw new Error('the link holds no model (nothing after `#spec=`)');
   const reader = new Blob([bytes]).stream().pipeThrough(new DecompressionStream('deflate-raw')).getReader();
   const chunks = [];
   let total = 0;
   for (;;) {
-    const r = await reader.read();
+    let r;
+    try { r = await reader.read(); } catch (e) { throw new Error(DAMAGED); }
     if (r.done) break;
     total += r.value.length;
-    if (total > limit) { reader.cancel(); throw new Error('the link expands to more than ' + Math.round(limit / 1048576) + ' MB'); }
+    if (total > limit) { reader.cancel().catch(function () {}); throw new Error('the link expands to more than ' + Math.round(limit / 1048576) + ' MB'); }
     chunks.push(r.value);
   }
   const all = new Uint8Array(total);
   let o = 0;
   for (const c of chunks) { all.set(c, o); o += c.length; }
-  return new TextDecoder('utf-8', { fatal: true }).decode(all);
+  try { return new TextDecoder('utf-8', { fatal: true }).decode(all); } catch (e) { throw new Error('the link is damaged: what it unpacks to is not text (UTF-8)'); }
+}
+
+// base64url -> bytes, with the page's words for a link whose characters or length are wrong.
+function linkBytes(param) {
+  if (typeof param !== 'string') throw new Error('the link holds no model');
+  try { return base64urlToBytes(param); } catch (e) {
+    if (/not base64url/.test(e.message)) throw new Error('the link contains characters that are not base64url (was it changed or cut?)');
+    throw new Error(DAMAGED);
+  }
 }
 
 /** sharedModels(…) -> the value of the link's `spec` parameter. */
@@ -66,17 +82,23 @@ export async function encodeShared(shared) {
 
 /** The link's `spec` parameter -> {a: {form, settings}, b: {form, settings} | null}; throws a message. */
 export async function decodeShared(param, limit) {
-  const text = await inflate(base64urlToBytes(param), limit || SHARE_LIMIT);
+  const text = await inflate(linkBytes(param), limit || SHARE_LIMIT);
   let obj;
   try { obj = JSON.parse(text); } catch (e) { throw new Error('the link does not hold valid JSON (' + e.message + ')'); }
   return readShared(obj);
 }
 
+// True when an object is a plain JSON object (not null, not an array).
+function isObject(v) {
+  return !!v && typeof v === 'object' && !Array.isArray(v);
+}
+
 // One shared model: {spec, settings}. `where` names it in messages ('' or 'model B: ').
 function readSharedModel(obj, where, allowed) {
-  if (!obj || typeof obj !== 'object' || Array.isArray(obj)) throw new Error(where + 'the link does not hold a JSON object');
+  if (!isObject(obj)) throw new Error(where + 'the link does not hold a JSON object, so it is not a Kiln model');
+  if (!('spec' in obj) && !where) throw new Error('the link does not hold a Kiln model (no `spec`; it has: ' + Object.keys(obj).slice(0, 8).map(function (k) { return '`' + k + '`'; }).join(', ') + ')');
   for (const k of Object.keys(obj)) if (allowed.indexOf(k) < 0) throw new Error(where + 'unknown key `' + k + '` (allowed: ' + allowed.join(', ') + ')');
-  if (!obj.spec || typeof obj.spec !== 'object' || Array.isArray(obj.spec)) throw new Error(where + 'the link has no `spec` object');
+  if (!isObject(obj.spec)) throw new Error(where + 'the link has no `spec` object');
   const settings = {};
   if (obj.settings != null) {
     const s = obj.settings;
@@ -91,7 +113,11 @@ function readSharedModel(obj, where, allowed) {
     }
   }
   let loaded;
-  try { loaded = specToForm(obj.spec); } catch (e) { throw new Error(where + e.message); }
+  try { loaded = specToForm(obj.spec); } catch (e) {
+    // specToForm's own messages are plain words; anything else means a shape it did not expect.
+    const own = e && e.constructor === Error && typeof e.message === 'string';
+    throw new Error(where + (own ? e.message : 'the link\'s spec is not a Kiln spec (' + String(e && e.message) + ')'));
+  }
   Object.assign(loaded.settings, settings);
   return loaded;
 }

@@ -3,15 +3,26 @@
 // Stored: {v: 1, active, A, B}, each slot as the form as typed (even when it does not parse
 // yet), its settings and, when it parses, the spec it describes. A single-file page keeps its
 // edits under its own key, so that it opens first with its own model.
-// Owns: the storage key, saveSoon, saveNow, restore, useSinglePageKey.
-// Must not touch: the DOM beyond a notice when storage is full, and the engine.
+// When the storage is disabled or full the page goes on working and says, once, that edits
+// are not kept; when only the data tables are too large, everything else is kept without them
+// (and the notice says the data must be loaded again after a reload).
+// Owns: the storage key, saveSoon, saveNow, restore, useSinglePageKey, storageState
+// (body[data-storage]: ok | no-data | off).
+// Must not touch: the DOM beyond that attribute and a notice, and the engine.
 import { state, newSlot, buildSpec } from './state.js';
 import { sanitiseForm, sanitiseSettings } from './spec-form.js';
 import { notice } from './notice.js';
 
 let storageKey = 'kiln.workspace.v1';
 let saveTimer = null;
-let storageWarned = false;
+let warned = '';
+// The size of the data tables (characters) that last did not fit: at that size or more, the
+// page does not try again (a large paste would otherwise be serialised twice per edit).
+let tooLarge = Infinity;
+
+function dataSize() {
+  return ['A', 'B'].reduce(function (n, id) { return n + (state.slots[id] ? state.slots[id].form.dataCsv.length : 0); }, 0);
+}
 
 // A short hash of a text (FNV-1a, 32 bits, base 36).
 function fnv(text) {
@@ -30,27 +41,64 @@ export function saveSoon() {
   saveTimer = setTimeout(saveNow, 250);
 }
 
-function slotSnapshot(s) {
+function slotSnapshot(s, withData) {
   if (!s) return null;
+  if (!withData) {
+    // The form without its data table (nor a spec, which would carry the data).
+    const form = Object.assign({}, s.form, { dataCsv: '' });
+    return { form: form, settings: s.settings, spec: null, dataDropped: s.form.dataCsv.length > 0 };
+  }
   const b = buildSpec(s);
   return { form: s.form, settings: s.settings, spec: b.errors.length ? null : b.spec };
 }
 
+function store(text) {
+  localStorage.setItem(storageKey, text);
+}
+
+/** What the page keeps right now: ok | no-data (the data tables are not kept) | off. */
+export function storageState() {
+  return document.body.dataset.storage || 'ok';
+}
+
+function setState(v, message) {
+  document.body.dataset.storage = v;
+  if (message && warned !== v) {
+    warned = v;
+    notice([message], { bad: true });
+  }
+}
+
 export function saveNow() {
+  clearTimeout(saveTimer);
+  const snap = function (withData) {
+    return JSON.stringify({ v: 1, active: state.active, A: slotSnapshot(state.slots.A, withData), B: slotSnapshot(state.slots.B, withData) });
+  };
+  const size = dataSize();
+  if (size < tooLarge) {
+    try {
+      store(snap(true));
+      if (storageState() !== 'ok') setState('ok', null);
+      return;
+    } catch (e) { tooLarge = size; /* full or disabled: try without the data below */ }
+  }
   try {
-    localStorage.setItem(storageKey, JSON.stringify({ v: 1, active: state.active, A: slotSnapshot(state.slots.A), B: slotSnapshot(state.slots.B) }));
+    store(snap(false));
+    setState('no-data', 'The data table is too large for the browser\'s storage: the model, formula and settings are kept, but after a reload the data must be loaded again. Use “Save spec” to keep everything in a file.');
   } catch (e) {
-    if (!storageWarned) {
-      storageWarned = true;
-      notice(['This model is too large to keep in the browser\'s storage, so it will not be restored on reload. Use “Save spec” to keep it in a file.'], { bad: true });
-    }
+    setState('off', 'This browser does not let the page keep anything (its storage is full or disabled): edits are not kept after this tab is closed or reloaded. The page works as usual; use “Save spec” to keep the model in a file.');
   }
 }
 
 /** Puts the stored workspace into the state; false when there is none (or it cannot be read). */
 export function restore() {
   let raw = null;
-  try { raw = localStorage.getItem(storageKey); } catch (e) { raw = null; }
+  let readable = true;
+  try { raw = localStorage.getItem(storageKey); } catch (e) { raw = null; readable = false; }
+  if (!readable) {
+    setState('off', 'This browser does not let the page keep anything (its storage is disabled): edits are not kept after this tab is closed or reloaded. The page works as usual; use “Save spec” to keep the model in a file.');
+    return false;
+  }
   if (!raw) return false;
   try {
     const w = JSON.parse(raw);
@@ -58,6 +106,9 @@ export function restore() {
     state.slots.A = newSlot(sanitiseForm(w.A.form), sanitiseSettings(w.A.settings));
     state.slots.B = w.B ? newSlot(sanitiseForm(w.B.form), sanitiseSettings(w.B.settings)) : null;
     state.active = w.active === 'B' && state.slots.B ? 'B' : 'A';
+    if (w.A.dataDropped || (w.B && w.B.dataDropped)) {
+      notice(['The data table was too large for the browser\'s storage and was not kept: load it again (the model, formula and settings are as you left them).'], { bad: true });
+    }
     return true;
   } catch (e) { return false; }
 }

@@ -1,7 +1,9 @@
 // Replacing a model with a way back: loading a demo, a file or a share link into a slot, and
 // removing model B, each offer one Undo in the notice bar.
 //
-// Owns: replaceModels, replaceSlotModel, removeModelB.
+// The latest undo stays available (pendingUndo) until it is used, so that a message shown after
+// it (a share link that cannot be opened, say) can offer it again.
+// Owns: replaceModels, replaceSlotModel, removeModelB, pendingUndo.
 // Must not touch: how a model is read (models-io.js) or shown (editor.js).
 import { state, newSlot } from './state.js';
 import { afterModelReplaced } from './slots.js';
@@ -11,6 +13,20 @@ import { saveSoon } from './storage.js';
 import { scheduleCheck } from './checking.js';
 import { renderAll } from './render-loop.js';
 import { notice } from './notice.js';
+
+let lastUndo = null;
+
+// Offers `fn` as the Undo of the notice `parts`; it runs once at most.
+function offerUndo(parts, fn) {
+  const action = { label: 'Undo', fn: function () { if (lastUndo !== action) return; lastUndo = null; fn(); } };
+  lastUndo = action;
+  notice(parts, { action: action });
+}
+
+/** The latest Undo not yet used ({label, fn}), or null. */
+export function pendingUndo() {
+  return lastUndo;
+}
 
 /**
  * Replaces the models in one or both slots ({A: loaded, B: loaded}, loaded = {form, settings}),
@@ -25,18 +41,14 @@ export function replaceModels(models, label) {
     state.slots[id] = newSlot(models[id].form, models[id].settings);
   }
   if (ids.some(function (id) { return prev[id]; })) {
-    notice([label + ' (model' + (ids.length > 1 ? 's ' : ' ') + ids.join(' and ') + '). '], {
-      action: {
-        label: 'Undo', fn: function () {
-          if (state.running && ids.indexOf(state.running.slotId) >= 0) return;
-          for (const id of ids) {
-            const p = prev[id];
-            state.slots[id] = p ? newSlot(p.form, p.settings) : id === 'A' ? newSlot() : null;
-          }
-          if (ids.indexOf('B') >= 0 && !state.slots.B && state.active === 'B') state.active = 'A';
-          for (const id of ids) if (state.slots[id]) afterModelReplaced(id);
-        },
-      },
+    offerUndo([label + ' (model' + (ids.length > 1 ? 's ' : ' ') + ids.join(' and ') + '). '], function () {
+      if (state.running && ids.indexOf(state.running.slotId) >= 0) return;
+      for (const id of ids) {
+        const p = prev[id];
+        state.slots[id] = p ? newSlot(p.form, p.settings) : id === 'A' ? newSlot() : null;
+      }
+      if (ids.indexOf('B') >= 0 && !state.slots.B && state.active === 'B') state.active = 'A';
+      for (const id of ids) if (state.slots[id]) afterModelReplaced(id);
     });
   }
   for (const id of ids) afterModelReplaced(id);
@@ -58,5 +70,5 @@ export function removeModelB() {
   state.slots.B = null;
   if (state.active === 'B') state.active = 'A';
   writeFormToDom(); saveSoon(); renderAll();
-  notice(['Model B removed. '], { action: { label: 'Undo', fn: function () { state.slots.B = newSlot(prev.form, prev.settings); saveSoon(); scheduleCheck('B', 0); renderAll(); } } });
+  offerUndo(['Model B removed. '], function () { state.slots.B = newSlot(prev.form, prev.settings); saveSoon(); scheduleCheck('B', 0); renderAll(); });
 }

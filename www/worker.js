@@ -6,7 +6,9 @@
 // Must not touch: the page (it cannot); everything it sends back is plain data.
 //
 // Messages in (each may carry an `id` that is echoed back):
-//   {type: 'init', wasm?: ArrayBuffer}          load the engine (from bytes, or pkg/kiln_bg.wasm)
+//   {type: 'init', wasm?: ArrayBuffer, lifeLock?} load the engine (from bytes, or pkg/kiln_bg.wasm);
+//                                                with lifeLock, first hold that Web Lock for the
+//                                                worker's whole life -> {type: 'inited', lifeLock: held}
 //   {type: 'check', spec}                        check_spec(spec) -> {type: 'checked', result}
 //   {type: 'compare', a, b}                      compare_runs(a, b) (run results as JSON) -> {type: 'compared', result}
 //   {type: 'grid', spec, ix, iy, xmin, xmax, ymin, ymax, nx, ny} -> {type: 'grid', values}
@@ -53,6 +55,19 @@ function plainError(e) {
   };
 }
 
+// Holds the Web Lock `name` until this worker ends (however it ends), so that the page learns of
+// a worker that died without a word: its own request for the lock is granted then. Resolves to
+// whether the lock is held (false where locks are not offered, e.g. a file:// page).
+function holdLifeLock(name) {
+  return new Promise(function (held) {
+    try {
+      if (!name || !self.navigator || !navigator.locks) { held(false); return; }
+      navigator.locks.request(name, function () { held(true); return new Promise(function () {}); })
+        .catch(function () { held(false); });
+    } catch (e) { held(false); }
+  });
+}
+
 function sessionState(s) {
   return {
     chains: s.chains(),
@@ -67,6 +82,7 @@ function sessionState(s) {
 async function handle(msg) {
   switch (msg.type) {
     case 'init': {
+      const lifeLock = await holdLifeLock(msg.lifeLock);
       if (!kilnReady) {
         const source = msg.wasm ? msg.wasm : 'pkg/kiln_bg.wasm';
         kilnReady = wasm_bindgen({ module_or_path: source }).catch(function (e) {
@@ -77,7 +93,7 @@ async function handle(msg) {
         });
       }
       await kilnReady;
-      return { type: 'inited', version: wasm_bindgen.version() };
+      return { type: 'inited', version: wasm_bindgen.version(), lifeLock: lifeLock };
     }
     case 'check': {
       await kilnReady;

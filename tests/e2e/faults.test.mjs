@@ -1,0 +1,368 @@
+// Faults the page must survive with nothing the user typed lost, in headless Chromium:
+//   (a) an engine worker that traps, or dies without a word, in the middle of a run;
+//   (b) the browser's storage disabled, or full;
+//   (c) a damaged, truncated or foreign share link (and markup inside one);
+//   (d) a paste of 10^6 data cells (and one over the limit);
+//   (e) 100 runs back to back in one tab, with cancels in between: memory and speed;
+//   (f) a reload in the middle of a run.
+// Runs use small settings so that each test stays quick.
+import { test, before, after } from 'node:test';
+import assert from 'node:assert/strict';
+import zlib from 'node:zlib';
+import { startServer, launch, openPage, shot } from './harness.mjs';
+
+let server;
+let browser;
+
+before(async () => {
+  server = await startServer();
+  browser = await launch();
+});
+
+after(async () => {
+  await browser?.close();
+  server?.stop();
+});
+
+const id = (name) => `[data-testid="${name}"]`;
+const DEMO = '/#demo=default-two-modes.json';
+
+async function ready(page) {
+  await page.waitForSelector('body[data-ready="true"]', { timeout: 30000 });
+}
+
+/** Clicks Run and waits until the run is done and its log Z is shown. */
+async function runAndWait(page) {
+  await page.click(id('run-button'));
+  await page.waitForSelector('body[data-run-state="done"]', { timeout: 120000 });
+  await page.waitForFunction((sel) => /-?\d+\.\d+/.test(document.querySelector(sel)?.textContent || ''), id('logz-value'), { timeout: 30000 });
+}
+
+/** Small settings: 2 chains, `draws` kept draws, `warmup` warm-up iterations. */
+async function small(page, draws, warmup) {
+  await page.fill(id('chains-input'), '2');
+  await page.fill(id('draws-input'), String(draws));
+  await page.fill(id('warmup-input'), String(warmup));
+}
+
+/** Starts a long run and resolves once it is past its first steps (a step counter moved). */
+async function startLongRun(page) {
+  await page.fill(id('draws-input'), '200000');
+  await page.click(id('run-button'));
+  await page.waitForFunction((sel) => document.body.dataset.runState === 'running' &&
+    /Warm-up, step ([2-9]|\d\d)|Sampling/.test(document.querySelector(sel)?.textContent || ''), id('progress-text'), { timeout: 60000 });
+}
+
+/** What the user typed, as the page holds it in its fields. */
+async function typed(page) {
+  return {
+    title: await page.inputValue(id('title-input')),
+    formula: await page.inputValue(id('formula-editor')),
+    seed: await page.inputValue(id('seed-input')),
+    chains: await page.inputValue(id('chains-input')),
+    draws: await page.inputValue(id('draws-input')),
+    warmup: await page.inputValue(id('warmup-input')),
+  };
+}
+
+// ---------------------------------------------------------------------------------------------
+// (a) A worker that traps or dies mid-run.
+
+for (const [how, hurt, expect] of [
+  // A trap inside the engine (what a Rust panic becomes in WebAssembly): the next step throws.
+  ['traps', (w) => w.evaluate(() => { wasm_bindgen.RunSession.prototype.run_step = function () { throw new WebAssembly.RuntimeError('unreachable'); }; }), /stopped unexpectedly: unreachable/],
+  // A worker that ends without a word (as when the browser kills it for memory): no error event.
+  ['dies without a word', (w) => w.evaluate(() => { self.close(); }), /stopped without a word/],
+]) {
+  test(`a worker that ${how} mid-run: the page says so, keeps the model, settings and earlier result, and runs again`, async () => {
+    const { page, context, errors } = await openPage(browser);
+    const workers = [];
+    page.on('worker', (w) => workers.push(w));
+    await page.goto(server.origin + DEMO);
+    await ready(page);
+    await small(page, 300, 200);
+    await page.fill(id('title-input'), 'Typed before the fault');
+    await runAndWait(page);
+    const earlier = await page.textContent(id('logz-value'));
+    await page.fill(id('seed-input'), '4');
+    const spawned = workers.length;
+    await startLongRun(page);
+    const runWorkers = workers.slice(spawned);
+    assert.ok(runWorkers.length >= 1, 'the run started its workers');
+    const kept = await typed(page);
+    await hurt(runWorkers[0]);
+    await page.waitForSelector('body[data-run-state="error"]', { timeout: 30000 });
+    const said = await page.textContent(id('notice'));
+    assert.match(said, /stopped before it finished/);
+    assert.match(said, /earlier result are kept/);
+    assert.match(await page.textContent(id('run-failure')), expect);
+    await shot(page, `faults-a-worker-${how.split(' ')[0]}`);
+    assert.deepEqual(await typed(page), kept, 'the model and settings are as typed');
+    assert.equal(await page.textContent(id('logz-value')), earlier, 'the earlier result is still shown');
+    assert.equal(await page.isDisabled(id('run-button')), false);
+    // The next run works, with new workers.
+    await page.fill(id('draws-input'), '300');
+    await runAndWait(page);
+    assert.equal(await page.inputValue(id('title-input')), 'Typed before the fault');
+    assert.deepEqual(errors.filter((e) => !/unreachable|RuntimeError/.test(e)), []);
+    await context.close();
+  });
+}
+
+// ---------------------------------------------------------------------------------------------
+// (b) Storage disabled or full.
+
+test('storage disabled: the page works and says that edits are not kept', async () => {
+  const { page, context } = await openPage(browser);
+  await context.addInitScript(() => {
+    Object.defineProperty(window, 'localStorage', { configurable: true, get() { throw new DOMException('The operation is insecure.', 'SecurityError'); } });
+  });
+  await page.goto(server.origin + DEMO);
+  await ready(page);
+  assert.equal(await page.getAttribute('body', 'data-storage'), 'off');
+  assert.match(await page.textContent(id('notice')), /edits are not kept/);
+  await page.fill(id('title-input'), 'Not kept, but works');
+  await small(page, 200, 100);
+  await runAndWait(page);
+  assert.equal(await page.inputValue(id('title-input')), 'Not kept, but works');
+  await context.close();
+});
+
+test('storage full: edits are said not to be kept; a table too large alone is left out, the rest kept', async () => {
+  const { page, context } = await openPage(browser);
+  // Full for anything but small values (as when other pages used the quota up).
+  await context.addInitScript(() => {
+    const set = Storage.prototype.setItem;
+    Storage.prototype.setItem = function (k, v) {
+      if (window.__storageFull === 'all' || String(v).length > 200000) throw new DOMException('The quota has been exceeded.', 'QuotaExceededError');
+      return set.call(this, k, v);
+    };
+  });
+  await page.goto(server.origin + DEMO);
+  await ready(page);
+  // A data table too large for the storage: the model is kept without it, and the page says so.
+  await page.fill(id('title-input'), 'Kept without its data');
+  await page.evaluate(() => {
+    const rows = ['a,b'];
+    for (let i = 0; i < 40000; i++) rows.push(i + ',' + (i * 0.5));
+    const box = document.querySelector('[data-testid="data-csv"]');
+    box.value = rows.join('\n');
+    box.dispatchEvent(new Event('input', { bubbles: true }));
+  });
+  await page.waitForSelector('body[data-storage="no-data"]', { timeout: 10000 });
+  assert.match(await page.textContent(id('notice')), /data must be loaded again/);
+  await page.reload();
+  await ready(page);
+  assert.equal(await page.inputValue(id('title-input')), 'Kept without its data');
+  assert.match(await page.textContent(id('notice')), /was not kept: load it again/);
+  // Storage full for everything: the page says edits are not kept, and goes on working.
+  await page.evaluate(() => { window.__storageFull = 'all'; });
+  await page.fill(id('data-csv'), '');
+  await page.fill(id('title-input'), 'Typed while full');
+  await page.waitForSelector('body[data-storage="off"]', { timeout: 10000 });
+  assert.match(await page.textContent(id('notice')), /edits are not kept/);
+  await small(page, 200, 100);
+  await runAndWait(page);
+  assert.equal(await page.inputValue(id('title-input')), 'Typed while full');
+  await context.close();
+});
+
+// ---------------------------------------------------------------------------------------------
+// (c) Damaged, truncated and foreign share links.
+
+test('a damaged, truncated or foreign share link: a clear error, the model untouched, undo still works', async () => {
+  const { page, context } = await openPage(browser);
+  let dialogs = 0;
+  page.on('dialog', (d) => { dialogs++; d.dismiss(); });
+  await page.goto(server.origin + DEMO);
+  await ready(page);
+  // The user's own model, then a demo loaded over it (which offers an Undo).
+  await page.fill(id('title-input'), 'My own model');
+  await page.fill(id('formula-editor'), '(x^2 - 1)^2 + y^2 / 2  # mine');
+  await page.waitForTimeout(400);
+  await page.selectOption(id('demo-select'), 'crystal-sensor-two-temperatures.json');
+  await page.waitForFunction((sel) => /Undo/.test(document.querySelector(sel)?.textContent || ''), id('notice'));
+  const demo = await typed(page);
+  // A real link of the demo, then broken in several ways.
+  await page.click(id('share-button'));
+  await page.waitForFunction((sel) => /#spec=/.test(document.querySelector(sel)?.value || ''), id('share-link'));
+  const link = (await page.inputValue(id('share-link'))).trim();
+  const param = link.split('#spec=')[1];
+  const deflate = (obj) => zlib.deflateRawSync(Buffer.from(typeof obj === 'string' ? obj : JSON.stringify(obj))).toString('base64url');
+  const bad = [
+    ['truncated', param.slice(0, Math.floor(param.length / 2)), /damaged or cut short/],
+    ['damaged', param.slice(0, 20) + (param[20] === 'A' ? 'B' : 'A') + param.slice(21, -3) + '___', /damaged|not valid JSON|unknown key|not text/],
+    ['not base64url', param.slice(0, 30) + '%%' + param.slice(30), /not base64url/],
+    ['empty', '', /holds no model/],
+    ['foreign JSON', deflate({ version: 2, items: [1, 2, 3] }), /does not hold a Kiln model/],
+    ['not a JSON object', deflate('[1, 2, 3]'), /not a Kiln model/],
+    ['markup', deflate({ spec: { energy: 'x^2' }, '<img src=x onerror="window.__pwned=1">': 1 }), /unknown key `<img src=x onerror="window.__pwned=1">`/],
+  ];
+  for (const [what, p, message] of bad) {
+    await page.evaluate((sel) => document.querySelector(sel)?.remove(), id('share-error'));
+    await page.evaluate((h) => { location.hash = h; }, 'spec=' + p);
+    await page.waitForSelector(id('share-error'), { timeout: 10000 });
+    const text = await page.textContent(id('share-error'));
+    assert.match(text, message, what);
+    assert.match(await page.textContent(id('notice')), /models in the page are unchanged/, what);
+    assert.deepEqual(await typed(page), demo, `${what}: the model is untouched`);
+    assert.equal(await page.evaluate(() => location.hash), '', `${what}: the link is cleared from the address`);
+  }
+  await shot(page, 'faults-c-share-link');
+  assert.equal(await page.evaluate(() => window.__pwned), undefined);
+  assert.equal(await page.$$eval('img[src="x"]', (els) => els.length), 0, 'markup in a link stays text');
+  assert.equal(dialogs, 0);
+  // The Undo offered by the demo's loading is still on offer after the errors, and works.
+  await page.click(id('notice-action'));
+  await page.waitForFunction((sel) => document.querySelector(sel)?.value === 'My own model', id('title-input'));
+  assert.equal(await page.inputValue(id('formula-editor')), '(x^2 - 1)^2 + y^2 / 2  # mine');
+  await context.close();
+});
+
+// ---------------------------------------------------------------------------------------------
+// (d) A paste of 10^6 cells.
+
+/** Pastes a CSV of `rows` × `cols` made in the page into the data table (a paste event). */
+async function pasteTable(page, rows, cols) {
+  await page.evaluate(([rows, cols]) => {
+    const lines = [Array.from({ length: cols }, (_, j) => 'c' + j).join(',')];
+    for (let i = 0; i < rows; i++) {
+      const row = [];
+      for (let j = 0; j < cols; j++) row.push(((i * 7 + j * 13) % 1000) / 10);
+      lines.push(row.join(','));
+    }
+    const dt = new DataTransfer();
+    dt.setData('text/plain', lines.join('\n'));
+    const box = document.querySelector('[data-testid="data-csv"]');
+    box.focus();
+    box.dispatchEvent(new ClipboardEvent('paste', { clipboardData: dt, bubbles: true, cancelable: true }));
+  }, [rows, cols]);
+}
+
+/** Starts recording input latency (Event Timing: key press to the next paint). */
+async function recordLatency(page) {
+  await page.evaluate(() => {
+    window.__latency = [];
+    new PerformanceObserver((list) => {
+      for (const e of list.getEntries()) if (/^key|^input|^pointer|^click/.test(e.name)) window.__latency.push(e.duration);
+    }).observe({ type: 'event', durationThreshold: 16, buffered: false });
+  });
+}
+
+test('a paste of 10^6 data cells: progress, the stated limit, input answered within 200 ms; over the limit, refused', async () => {
+  const { page, context } = await openPage(browser);
+  await page.goto(server.origin + DEMO);
+  await ready(page);
+  await page.fill(id('data-csv'), 'a,b\n1,2\n');
+  await recordLatency(page);
+  // Every text the data summary shows, as it changes.
+  await page.evaluate((sel) => {
+    const node = document.querySelector(sel);
+    window.__summaries = [];
+    new MutationObserver(() => window.__summaries.push(node.textContent)).observe(node, { childList: true, characterData: true, subtree: true });
+  }, id('data-summary'));
+  await pasteTable(page, 200000, 5); // 10^6 cells, about 3.7 MB
+  // Typing meanwhile: every key press is answered (painted) within 200 ms.
+  await page.click(id('title-input'));
+  const t0 = Date.now();
+  while (Date.now() - t0 < 6000) {
+    await page.keyboard.type('ab', { delay: 40 });
+    if (await page.evaluate(() => /200,000 rows ×/.test(document.querySelector('[data-testid="data-summary"]').textContent))) break;
+  }
+  await page.waitForFunction((sel) => /200,000 rows × 5 columns/.test(document.querySelector(sel)?.textContent || ''), id('data-summary'), { timeout: 60000 });
+  // Progress was shown while it was read, with the limit stated.
+  const summaries = await page.evaluate(() => window.__summaries);
+  const progress = summaries.filter((t) => /^Reading the pasted data: \d+ %/.test(t));
+  assert.ok(progress.length >= 2, summaries.slice(0, 5).join('\n'));
+  for (const t of progress) assert.match(t, /the limit is 1,000,000 cells/);
+  await page.keyboard.type('cd', { delay: 40 });
+  await page.waitForTimeout(300);
+  const latency = await page.evaluate(() => window.__latency);
+  const worst = Math.max(0, ...latency);
+  console.log(`# input latency during and after the paste: worst ${worst} ms over ${latency.length} slow events (≥ 16 ms)`);
+  assert.ok(worst < 200, `input latency ${worst} ms`);
+  assert.match(await page.textContent(id('notice')), /Pasted 200,000 rows × 5 columns \(1,000,000 cells/);
+  assert.equal((await page.inputValue(id('data-csv'))).split('\n').length, 200001);
+  await shot(page, 'faults-d-paste');
+  // Over the limit: refused with the limit stated, and the table is as it was.
+  const keptTable = await page.inputValue(id('data-csv'));
+  await pasteTable(page, 250001, 4);
+  await page.waitForFunction((sel) => /not used/.test(document.querySelector(sel)?.textContent || ''), id('notice'), { timeout: 30000 });
+  const said = await page.textContent(id('notice'));
+  assert.match(said, /(more than )?1,000,00\d cells \(250,00\d rows × 4 columns\)/);
+  assert.match(said, /the limit is 1,000,000 cells/);
+  assert.ok((await page.inputValue(id('data-csv'))) === keptTable, 'the table is as it was');
+  await context.close();
+});
+
+// ---------------------------------------------------------------------------------------------
+// (e) 100 runs in one tab.
+
+test('100 runs back to back with cancels in between: memory within 1.5× of after the first, no slowdown', async () => {
+  const { page, context, errors } = await openPage(browser);
+  await page.goto(server.origin + DEMO);
+  await ready(page);
+  await small(page, 40, 40);
+  const cdp = await context.newCDPSession(page);
+  await cdp.send('HeapProfiler.enable');
+  const measure = async () => {
+    await cdp.send('HeapProfiler.collectGarbage');
+    await cdp.send('HeapProfiler.collectGarbage');
+    const heap = await cdp.send('Runtime.getHeapUsage');
+    const dom = await cdp.send('Memory.getDOMCounters');
+    return { heap: heap.usedSize, nodes: dom.nodes, listeners: dom.jsEventListeners };
+  };
+  const times = [];
+  let first = null;
+  for (let k = 1; k <= 100; k++) {
+    if (k % 10 === 5) {
+      // A run cancelled once it has started its steps.
+      await page.fill(id('draws-input'), '200000');
+      await page.click(id('run-button'));
+      await page.waitForFunction(() => document.body.dataset.runState === 'running', null, { timeout: 30000 });
+      await page.waitForTimeout(150);
+      await page.click(id('cancel-button'));
+      await page.waitForSelector('body[data-run-state="cancelled"]', { timeout: 10000 });
+      await page.fill(id('draws-input'), '40');
+    }
+    await page.fill(id('seed-input'), String(k));
+    const t = Date.now();
+    await runAndWait(page);
+    times.push(Date.now() - t);
+    if (k === 1) first = await measure();
+  }
+  const last = await measure();
+  const median = (a) => a.slice().sort((x, y) => x - y)[Math.floor(a.length / 2)];
+  const early = median(times.slice(1, 11));
+  const late = median(times.slice(-10));
+  console.log(`# heap after run 1: ${(first.heap / 1e6).toFixed(1)} MB, after run 100: ${(last.heap / 1e6).toFixed(1)} MB; DOM nodes ${first.nodes} -> ${last.nodes}, listeners ${first.listeners} -> ${last.listeners}; median run ${early} ms (runs 2-11) vs ${late} ms (91-100)`);
+  assert.ok(last.heap <= 1.5 * first.heap, `heap ${first.heap} -> ${last.heap}`);
+  assert.ok(last.nodes <= 1.5 * first.nodes, `DOM nodes ${first.nodes} -> ${last.nodes}`);
+  assert.ok(last.listeners <= 1.5 * first.listeners, `listeners ${first.listeners} -> ${last.listeners}`);
+  assert.ok(late <= 1.5 * early + 50, `runs slowed down: median ${early} ms -> ${late} ms`);
+  assert.deepEqual(errors, []);
+  await context.close();
+});
+
+// ---------------------------------------------------------------------------------------------
+// (f) A reload during a run.
+
+test('a reload during a run: the model and settings are there after it, and the page runs again', async () => {
+  const { page, context } = await openPage(browser);
+  await page.goto(server.origin + DEMO);
+  await ready(page);
+  await page.fill(id('title-input'), 'Reloaded mid-run');
+  await page.fill(id('formula-editor'), '(x^2 - 4)^2 / 2 + (y - 1)^2 / 2  # typed just before the run');
+  await page.fill(id('seed-input'), '17');
+  await page.fill(id('chains-input'), '2');
+  await startLongRun(page);
+  const kept = await typed(page);
+  await page.reload();
+  await ready(page);
+  assert.deepEqual(await typed(page), kept, 'everything typed is there after the reload');
+  assert.equal(await page.getAttribute('body', 'data-run-state'), 'idle');
+  await page.fill(id('draws-input'), '200');
+  await page.fill(id('warmup-input'), '100');
+  await runAndWait(page);
+  await context.close();
+});
