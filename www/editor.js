@@ -142,7 +142,12 @@ function renderDataSummary() {
       const eng = await engine();
       info = { text: text, shape: await eng.readCsv(text) };
     } catch (e) {
-      if (e && e.kind === 'cancelled') return;
+      if (e && e.kind === 'cancelled') {
+        // The helper was replaced (a newer check preempted it): read again if this table is
+        // still the one shown, so the summary never stays at "Reading the data…".
+        if (token === dataToken && activeSlot() === slot && slot.form.dataCsv === text) renderDataSummary();
+        return;
+      }
       info = { text: text, error: e };
     }
     slot.dataInfo = info;
