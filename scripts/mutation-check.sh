@@ -83,7 +83,7 @@ run_tests() {
     if (cd "$tree" && $c) >>"$log" 2>&1; then
       continue
     fi
-    if grep -qE '^error(\[E[0-9]+\])?:|could not compile' "$log"; then
+    if grep -qE '^error\[E[0-9]+\]|could not compile' "$log"; then
       echo "mutation-check: the build failed, see $log" >&2
       tail -30 "$log" >&2
       exit 2
