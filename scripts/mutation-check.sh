@@ -19,10 +19,11 @@
 # /tmp/kiln-mutation/tree (afresh for each mutation, so uncommitted changes are not tested),
 # and every build shares CARGO_TARGET_DIR=/tmp/kiln-mutation/target, so only the mutated crate
 # is rebuilt. Tests are built with the `calibration` profile (release optimisation without the
-# slow link-time optimisation). Each mutation runs its targeted test commands in order and
-# stops at the first that fails. Before the mutations the same commands run on the unmutated
+# slow link-time optimisation). Each mutation runs all of its targeted test commands (the
+# table gives each one's result). Before the mutations the same commands run on the unmutated
 # copy, and every one must pass (otherwise a "caught" mutation would prove nothing).
-# Prints a markdown table: mutation | tests run | suite failed? | first failing test.
+# Prints a markdown table: mutation | tests run (each command's result) | suite failed? |
+# first failing test (the first reported, in the order the tests finished).
 set -euo pipefail
 repo="$(cd "$(dirname "$0")/.." && pwd)"
 work=/tmp/kiln-mutation
@@ -70,30 +71,39 @@ open(path, "w", encoding="utf-8").write(changed)
 PY
 }
 
-# run_tests "CMD1;CMD2" LOG: runs the commands in order, stops at the first failure.
-# Sets FAILED (yes/no), FIRST (first failing test or ""), RAN (commands run).
+# run_tests "CMD1;CMD2" LOG: runs every command (each is one test binary or a filtered set).
+# Sets FAILED (yes/no), FIRST (the first test reported as failing, with its command), RAN (the
+# commands with their results: passed, or how many tests failed).
 run_tests() {
-  local cmds="$1" log="$2" c
+  local cmds="$1" log="$2" c short one n
   FAILED=no FIRST="" RAN=""
   : >"$log"
   IFS=';' read -ra list <<<"$cmds"
   for c in "${list[@]}"; do
-    RAN="${RAN:+$RAN; }\`${c#cargo test --profile calibration }\`"
+    short="${c#cargo test --profile calibration }"
+    one="$log.part"
     echo "+ $c" >>"$log"
-    if (cd "$tree" && $c) >>"$log" 2>&1; then
+    if (cd "$tree" && $c) >"$one" 2>&1; then
+      cat "$one" >>"$log"
+      RAN="${RAN:+$RAN; }\`$short\`: passed"
       continue
     fi
-    if grep -qE '^error\[E[0-9]+\]|could not compile' "$log"; then
+    cat "$one" >>"$log"
+    if grep -qE '^error\[E[0-9]+\]|could not compile' "$one"; then
       echo "mutation-check: the build failed, see $log" >&2
-      tail -30 "$log" >&2
+      tail -30 "$one" >&2
       exit 2
     fi
     FAILED=yes
-    FIRST=$(grep -m1 -oE '^test [^ ]+ \.\.\. FAILED' "$log" | sed -E 's/^test ([^ ]+) .*/\1/' || true)
-    [ -n "$FIRST" ] || FIRST="(no test name: see log)"
-    FIRST="$FIRST (\`${c#cargo test --profile calibration }\`)"
-    return
+    n=$(grep -cE '^test [^ ]+ \.\.\. FAILED' "$one" || true)
+    RAN="${RAN:+$RAN; }\`$short\`: $n failed"
+    if [ -z "$FIRST" ]; then
+      FIRST=$(grep -m1 -oE '^test [^ ]+ \.\.\. FAILED' "$one" | sed -E 's/^test ([^ ]+) .*/\1/' || true)
+      [ -n "$FIRST" ] || FIRST="(no test name: see log)"
+      FIRST="$FIRST (\`$short\`)"
+    fi
   done
+  rm -f "$log.part"
 }
 
 rows=()
