@@ -163,6 +163,71 @@ fn separated_mixture_with_unequal_weights() {
     );
 }
 
+/// A mode the search cannot find must turn the verdict to "disagree", through the exact check
+/// (exact identity: a Gaussian mixture's Z is its total weight). The found cluster is a skewed
+/// pair (the base is not exact, so the SE is a real one); the hidden component is narrow and
+/// 5000 units away, where its density underflows to 0 near the searched region, so adding it
+/// leaves the run itself unchanged. Its weight is set from the run without it: a gap of
+/// 10 standard errors must be a disagreement, one of 2 must not (the rule is 4 standard errors,
+/// src/estimate/crosscheck.rs). Four seeds.
+#[test]
+fn a_mode_hidden_from_the_search_gives_disagree() {
+    use kiln::estimate::crosscheck::CheckKind;
+    use kiln::estimate::Agreement;
+    let found = [
+        json!({"weight": 0.46, "mean": [0, 0], "cov": [[1, 0.6], [0.6, 2]]}),
+        json!({"weight": 0.46, "mean": [0.5, 0], "cov": [[4, 2.4], [2.4, 8]]}),
+    ];
+    let w_found: f64 = 0.92;
+    let with_hidden = |w: f64| {
+        let mut comps = found.to_vec();
+        comps.push(json!({"weight": w, "mean": [4000, -3000], "sd": [0.5, 0.5]}));
+        json!({ "mixture": comps })
+    };
+    for seed in 1..=4 {
+        let alone = run_spec(json!({ "mixture": found.to_vec() }), quick(seed));
+        assert_base_not_exact(&alone, w_found.ln(), 0.1, "found cluster");
+        assert_eq!(
+            alone.verdict.state,
+            Agreement::Agree,
+            "{}",
+            alone.verdict.sentence
+        );
+        let se = alone.est.log_z_se;
+        assert!(
+            se > 1e-5,
+            "seed {seed}: SE {se}: the base is exact, nothing to test"
+        );
+        for (sigmas, expect) in [(10.0, Agreement::Disagree), (2.0, Agreement::Agree)] {
+            // ln((w_found + w) / w_found) = sigmas · SE.
+            let w = w_found * ((sigmas * se).exp() - 1.0);
+            let o = run_spec(with_hidden(w), quick(seed));
+            let truth = (w_found + w).ln();
+            assert_eq!(o.exact_log_z.map(|v| (v - truth).abs() < 1e-12), Some(true));
+            assert_eq!(
+                o.est.modes.len(),
+                1,
+                "seed {seed}: the hidden mode was found"
+            );
+            let exact = o.cross_checks.iter().find(|c| c.name == CheckKind::Exact);
+            eprintln!(
+                "seed {seed}, gap {sigmas} SE: log Z {} ± {se:.5}, exact {truth:.5}, z {:?}, {:?}",
+                o.est.log_z,
+                exact.and_then(|c| c.z_score),
+                o.verdict.state
+            );
+            assert_eq!(
+                o.verdict.state, expect,
+                "seed {seed}, gap {sigmas} SE: {}",
+                o.verdict.sentence
+            );
+            if expect == Agreement::Disagree {
+                assert_eq!(o.verdict.disagreeing, vec![CheckKind::Exact]);
+            }
+        }
+    }
+}
+
 /// Egg-crate likelihood with a uniform prior on [0, 10π]²: log Z = 235.85594 computed by
 /// tests/reference/egg_crate.py (three methods agreeing within 1e-9; the published 235.88 of
 /// Feroz, Hobson & Bridges 2009, recalled from memory, is 0.024 away and not used, see there).

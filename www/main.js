@@ -24,6 +24,7 @@
 //   unknowns-table   unknowns editor (rows: unknown-name, unknown-lower, unknown-upper, unknown-remove)
 //   add-unknown      button                          data-csv        CSV textarea
 //   data-file-button button: load a CSV file        data-summary    rows/columns of the data
+//   data-preview-note  note over a table too large to show whole (data-remove: its button)
 //   mixture-table    mixture editor                  add-component   button
 //   seed-input, chains-input, draws-input, warmup-input, method-select, integrator-select
 //   run-button       run the active model            run-both-button run A then B

@@ -6,7 +6,7 @@
 // When the storage is disabled or full the page goes on working and says, once, that edits
 // are not kept; when only the data tables are too large, everything else is kept without them
 // (and the notice says the data must be loaded again after a reload).
-// Owns: the storage key, saveSoon, saveNow, restore, useSinglePageKey, storageState
+// Owns: the storage key, saveSoon, saveNow, restore, useSinglePageKey, storageState, storageShortfall
 // (body[data-storage]: ok | no-data | off).
 // Must not touch: the DOM beyond that attribute and a notice, and the engine.
 import { state, newSlot, buildSpec } from './state.js';
@@ -61,15 +61,26 @@ export function storageState() {
   return document.body.dataset.storage || 'ok';
 }
 
-function setState(v, message) {
+function setState(v, message, quiet) {
   document.body.dataset.storage = v;
   if (message && warned !== v) {
     warned = v;
-    notice([message], { bad: true });
+    if (!quiet) notice([message], { bad: true });
   }
 }
 
-export function saveNow() {
+/** What a caller's own notice adds when the storage does not keep everything (else ''). */
+export function storageShortfall() {
+  const v = storageState();
+  if (v === 'no-data') return 'The data table is too large for the browser\'s storage: after a reload it must be loaded again (“Save spec” keeps everything in a file).';
+  if (v === 'off') return 'The browser\'s storage is full or disabled: edits are not kept after a reload (“Save spec” keeps the model in a file).';
+  return '';
+}
+
+/** Keeps the workspace now. `opt.quiet`: a change of storage state shows no notice (the caller
+ *  says it in its own, with storageShortfall). */
+export function saveNow(opt) {
+  const quiet = !!(opt && opt.quiet === true);
   clearTimeout(saveTimer);
   const snap = function (withData) {
     return JSON.stringify({ v: 1, active: state.active, A: slotSnapshot(state.slots.A, withData), B: slotSnapshot(state.slots.B, withData) });
@@ -84,9 +95,9 @@ export function saveNow() {
   }
   try {
     store(snap(false));
-    setState('no-data', 'The data table is too large for the browser\'s storage: the model, formula and settings are kept, but after a reload the data must be loaded again. Use “Save spec” to keep everything in a file.');
+    setState('no-data', 'The data table is too large for the browser\'s storage: the model, formula and settings are kept, but after a reload the data must be loaded again. Use “Save spec” to keep everything in a file.', quiet);
   } catch (e) {
-    setState('off', 'This browser does not let the page keep anything (its storage is full or disabled): edits are not kept after this tab is closed or reloaded. The page works as usual; use “Save spec” to keep the model in a file.');
+    setState('off', 'This browser does not let the page keep anything (its storage is full or disabled): edits are not kept after this tab is closed or reloaded. The page works as usual; use “Save spec” to keep the model in a file.', quiet);
   }
 }
 

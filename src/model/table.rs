@@ -127,6 +127,9 @@ pub fn read_csv(text: &str, max_cells: usize) -> Result<Vec<(String, Vec<f64>)>,
     let mut header_seen = false;
     let mut cells = 0usize;
     let mut row = 0usize;
+    // The 1-based line of the current record, and the byte up to which its line ends are counted.
+    let mut line = 1usize;
+    let mut counted_to = 0usize;
     loop {
         let ok = reader.read_record(&mut record).map_err(|e| {
             let (line, byte) = e
@@ -152,11 +155,15 @@ pub fn read_csv(text: &str, max_cells: usize) -> Result<Vec<(String, Vec<f64>)>,
         while matches!(text.as_bytes().get(start), Some(b'\r' | b'\n')) {
             start += 1;
         }
-        let line = text.as_bytes()[..start.min(text.len())]
-            .iter()
-            .filter(|&&b| b == b'\n')
-            .count()
-            + 1;
+        // Counted on from the record before (records start in order): linear in the text.
+        let upto = start.min(text.len());
+        if upto > counted_to {
+            line += text.as_bytes()[counted_to..upto]
+                .iter()
+                .filter(|&&b| b == b'\n')
+                .count();
+            counted_to = upto;
+        }
         // A line of nothing but delimiters and spaces is a blank line (spreadsheets write them
         // below the data); an empty quoted field `""` is a cell.
         let line_end = text[start..].find('\n').map_or(text.len(), |i| start + i);
@@ -227,11 +234,12 @@ pub fn read_csv(text: &str, max_cells: usize) -> Result<Vec<(String, Vec<f64>)>,
             .with_hint("thin or aggregate the data (for example into counts per bin)"));
         }
         for (j, cell) in record.iter().enumerate() {
-            let range = field_range(text, start, j, delim);
+            // Only an error needs the cell's place in the text.
+            let range = || field_range(text, start, j, delim);
             if cell.is_empty() {
                 return Err(err_at(
                     text,
-                    range,
+                    range(),
                     format!(
                         "data row {row} (line {line}), column `{}`: the cell is empty",
                         names[j]
@@ -245,7 +253,7 @@ pub fn read_csv(text: &str, max_cells: usize) -> Result<Vec<(String, Vec<f64>)>,
                     let shown: String = cell.chars().take(40).collect();
                     return Err(err_at(
                         text,
-                        range,
+                        range(),
                         format!(
                             "data row {row} (line {line}), column `{}`: `{shown}` is not a number",
                             names[j]
@@ -295,6 +303,29 @@ mod tests {
         // A quoted field may hold the delimiter and a doubled quote.
         let e = read("a,b\n\"1,5\",2\n").unwrap_err();
         assert!(e.message.contains("`1,5` is not a number"), "{}", e.message);
+    }
+
+    #[test]
+    fn lines_counted_on_from_record_to_record() {
+        // 3000 rows with CR LF ends, a blank line every 7 rows and a quoted field over two
+        // lines; the bad cell's line is counted here by hand from the text.
+        let mut t = String::from("a,b\r\n");
+        for i in 0..3000 {
+            if i % 7 == 3 {
+                t.push_str("\r\n");
+            }
+            t.push_str(&format!("{i},{}\r\n", i % 5));
+        }
+        t.push_str("\"x\ny\",2\r\n");
+        let Err(e) = read(&t) else {
+            panic!("the bad cell was read")
+        };
+        let line = t.bytes().filter(|&b| b == b'\n').count() - 1;
+        assert_eq!(e.location.unwrap().line, line);
+        assert_eq!(
+            e.message,
+            format!("data row 3001 (line {line}), column `a`: `x\ny` is not a number")
+        );
     }
 
     #[test]

@@ -81,8 +81,8 @@ test('what must be fixed first is prefixed by the model when there are two', () 
 test('a bad link is refused with a message that says why (and names model B)', async () => {
   await assert.rejects(decodeShared('ab$c'), /the link contains characters that are not base64url/);
   await assert.rejects(decodeShared(zlib.deflateRawSync(Buffer.from('{nope')).toString('base64url')), /^Error: the link does not hold valid JSON \(/);
-  await assert.rejects(decodeShared(param([good])), /^Error: the link does not hold a JSON object$/);
-  await assert.rejects(decodeShared(param({ settings: {} })), /^Error: the link has no `spec` object$/);
+  await assert.rejects(decodeShared(param([good])), /^Error: the link does not hold a JSON object, so it is not a Kiln model$/);
+  await assert.rejects(decodeShared(param({ settings: {} })), /^Error: the link does not hold a Kiln model \(no `spec`; it has: `settings`\)$/);
   await assert.rejects(decodeShared(param({ spec: good, extra: 1 })), /^Error: unknown key `extra` \(allowed: spec, settings, b\)$/);
   await assert.rejects(decodeShared(param({ spec: good, settings: { seed: 1.5 } })), /^Error: `seed` must be a whole number ≥ 0$/);
   await assert.rejects(decodeShared(param({ spec: good, settings: { speed: 1 } })), /^Error: unknown setting `speed`/);
