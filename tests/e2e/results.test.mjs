@@ -307,19 +307,31 @@ test('A versus B: the same model twice gives a log Bayes factor near 0, judged, 
 });
 
 test('A versus B: refused, with the reason, when a verdict is not "agree"', async () => {
-  // The fish demo's verdict is "not enough evidence" (no grid in 4-D, the importance check
-  // abstains); tests/demos.rs holds it to that.
-  const cli = await kilnJson(['run', demo('fish-cohorts-label-switching.json'), '--json']);
-  assert.notEqual(cli.verdict.state, 'agree', 'a demo whose verdict is not agree');
+  // A heavy-tailed bump in three unknowns, density (1 + r²)^-2, whose log Z is log π² exactly
+  // (∫ 4π r² (1 + r²)^-2 dr = π²): no grid in 3-D, and the importance weights have an infinite
+  // variance (Pareto k̂ above 0.5), so no independent check can vote and the verdict is "not
+  // enough evidence". Every demo agrees, so the test brings its own model.
+  const spec = {
+    title: 'A heavy-tailed bump in three unknowns',
+    variables: [{ name: 'x' }, { name: 'y' }, { name: 'z' }],
+    energy: '2 * log(1 + x^2 + y^2 + z^2)',
+    settings: { seed: 4, draws: 600, warmup: 400 },
+  };
+  const file = path.join(ARTIFACTS, 'heavy-bump-spec.json');
+  fs.writeFileSync(file, JSON.stringify(spec));
+  const cli = await kilnJson(['run', file, '--json']);
+  assert.notEqual(cli.verdict.state, 'agree', 'a model whose verdict is not agree');
   const { page, context } = await openPage(browser);
-  await page.goto(server.origin + '/#demo=fish-cohorts-label-switching.json');
+  await page.goto(server.origin + '/');
   await ready(page);
+  await page.setInputFiles(id('open-spec-file'), file);
+  await page.waitForFunction((t) => document.body.textContent.includes(t), spec.title);
   await runAandB(page);
   await shot(page, '32-compare-refused');
   // The reason names every side whose verdict is not "agree", by what its verdict says.
   const states = {};
   for (const s of ['A', 'B']) states[s] = await page.getAttribute(id('compare-verdict-' + s), 'data-state');
-  assert.equal(states.A, cli.verdict.state, 'model A is the demo with its own seed');
+  assert.equal(states.A, cli.verdict.state, 'model A is the spec with its own seed');
   const why = { not_enough_evidence: "log Z has no independent check", disagree: 'cross-checks disagree' };
   const reasons = ['A', 'B'].filter((s) => states[s] !== 'agree').map((s) => `${s}'s ${why[states[s]]}`);
   const refused = await page.textContent(id('bayes-factor-refused'));
