@@ -7,17 +7,19 @@
 // is handed, the page state or the engine (plots-view.js decides what to draw, and saves PNGs).
 import { quantiles } from './numbers.js';
 
-// Okabe–Ito, ordered so that neighbouring modes differ strongly; yellow late (weak on white).
+// Okabe & Ito's colour-blind-safe set (2008, "Color universal design"), ordered so that neighbouring modes differ strongly; yellow late (weak on white).
 const PALETTE = ['#0072B2', '#E69F00', '#009E73', '#D55E00', '#CC79A7', '#56B4E9', '#F0E442', '#000000'];
 const FONT = '12px system-ui, -apple-system, "Segoe UI", Roboto, "Helvetica Neue", Arial, sans-serif';
 const SMALL = '11px system-ui, -apple-system, "Segoe UI", Roboto, "Helvetica Neue", Arial, sans-serif';
-const INK = '#1f2328';
-const MUTED = '#59636e';
-const GRIDLINE = '#eceef1';
-const FRAME = '#b8bfc7';
+// Neutrals: the light scheme's warm clay tones of app.css (the canvases stay light in both
+// schemes): soot, ash, grog-soft, and a fired-clay frame.
+const INK = '#2b2521';
+const MUTED = '#665b52';
+const GRIDLINE = '#ebe4da';
+const FRAME = '#b5a898';
 
 export function modeColor(m) {
-  if (!(m >= 1)) return '#8c959f';
+  if (!(m >= 1)) return '#a39585';
   return PALETTE[(Math.floor(m) - 1) % PALETTE.length];
 }
 function chainColor(c) { return PALETTE[c % PALETTE.length]; }
@@ -152,7 +154,7 @@ export function message(canvas, text, height) {
   const p = prepare(canvas, height || 200);
   if (!p) return;
   const ctx = p.ctx;
-  ctx.strokeStyle = '#d0d7de';
+  ctx.strokeStyle = '#d9cfc2';
   ctx.setLineDash([4, 4]);
   ctx.strokeRect(8.5, 8.5, p.w - 17, p.h - 17);
   ctx.setLineDash([]);
@@ -501,7 +503,7 @@ export function betaPlot(canvas, o) {
   const sx = scale(xr[0], xr[1], x0, x1);
   for (let k = 0; k < strips; k++) {
     const f = { x0: x0, y0: top + k * (stripH + gap), x1: x1, y1: top + k * (stripH + gap) + stripH };
-    ctx.fillStyle = '#fafbfc';
+    ctx.fillStyle = '#fdf9f3';
     ctx.fillRect(f.x0, f.y0, f.x1 - f.x0, f.y1 - f.y0);
     ctx.strokeStyle = FRAME;
     ctx.lineWidth = 1;
@@ -571,7 +573,7 @@ export function betaPlot(canvas, o) {
   for (const c of counts) mx = Math.max(mx, c / (total || 1));
   const g = { x0: split + 40, y0: top, x1: p.w - 14, y1: yBottom };
   const hs = axes(ctx, g, [0, 1], [0, (mx || 1) * 1.1], '\u03b2 (all chains)', 'share', { xTicks: 2, yTicks: 3, yLabelGap: 34 });
-  ctx.fillStyle = '#7f8b99';
+  ctx.fillStyle = '#8a7d70';
   for (let b = 0; b < bins; b++) {
     const xa = hs.sx(b / bins), xb = hs.sx((b + 1) / bins);
     const y = hs.sy(counts[b] / (total || 1));

@@ -4,6 +4,7 @@
 //! Must not: compute results.
 
 use super::results::{Report, Row};
+use super::speed;
 use super::Method;
 use crate::bench::command_output;
 use crate::bench::results::find;
@@ -263,7 +264,112 @@ pub fn markdown(r: &Report, files: bool) -> String {
         o.push('\n');
     }
     o.push_str(&format!("\nWebAssembly: {}.\n", r.speed.wasm_note));
+    o.push_str(&growth_with_rows(r));
     o
+}
+
+/// The speed rows of the Student-t likelihood's growth series, in row order, with their index
+/// in the speed table.
+fn growth_rows(r: &Report) -> Vec<(usize, &speed::SpeedRow)> {
+    r.speed
+        .native
+        .iter()
+        .enumerate()
+        .filter(|(_, n)| {
+            n.energy.starts_with("Student-t") && speed::GROWTH_ROWS.contains(&n.data_rows)
+        })
+        .collect()
+}
+
+/// How the cost of one energy + gradient grows with the data rows, natively and in
+/// WebAssembly, and the goal at the largest table: tape ÷ hand-written ≤ 1.2.
+fn growth_with_rows(r: &Report) -> String {
+    let rows = growth_rows(r);
+    if rows.is_empty() {
+        return String::new();
+    }
+    let mut o = String::from("\n#### Growth with data rows\n\n");
+    o.push_str("The Student-t likelihood above (`logd_student`, 2 unknowns) over the first 10, 100, 1000 and 10 000 rows of one sample: nanoseconds per energy + gradient and per row. ![ns per evaluation against data rows](bench/plots/growth-rows.svg)\n\n");
+    o.push_str("| rows | native tape ns | tape ns per row | native tape ÷ hand | wasm tape ns | wasm tape ÷ hand | wasm ÷ native (tape) |\n|---|---|---|---|---|---|---|\n");
+    for (i, n) in &rows {
+        let w = r.speed.wasm.as_ref().and_then(|w| w.get(*i));
+        let q = r.speed.wasm_over_native.as_ref().and_then(|w| w.get(*i));
+        o.push_str(&format!(
+            "| {} | {:.1} | {:.2} | {:.2} | {} | {} | {} |\n",
+            n.data_rows,
+            n.tape_ns,
+            n.tape_ns / n.data_rows as f64,
+            n.ratio,
+            w.map_or("—".into(), |w| format!("{:.1}", w.tape_ns)),
+            w.map_or("—".into(), |w| format!("{:.2}", w.ratio)),
+            q.map_or("—".into(), |q| format!("{:.2}", q.tape)),
+        ));
+    }
+    if let Some((i, last)) = rows.last() {
+        let native_met = last.ratio <= ROWS_GOAL;
+        let wasm = r
+            .speed
+            .wasm
+            .as_ref()
+            .and_then(|w| w.get(*i))
+            .map(|w| w.ratio);
+        o.push_str(&format!(
+            "\nGoal at {} rows: tape ÷ hand-written ≤ {ROWS_GOAL}: native {:.2} ({}), WebAssembly {}.\n",
+            last.data_rows,
+            last.ratio,
+            if native_met { "met" } else { "missed" },
+            match wasm {
+                Some(w) => format!("{w:.2} ({})", if w <= ROWS_GOAL { "met" } else { "missed" }),
+                None => "not measured".into(),
+            }
+        ));
+    }
+    o
+}
+
+/// The goal for tape ÷ hand-written at the largest data table.
+const ROWS_GOAL: f64 = 1.2;
+
+/// The chart of [`growth_with_rows`]: ns per evaluation against rows, tape and hand-written,
+/// native and WebAssembly.
+fn growth_rows_chart(r: &Report) -> Option<String> {
+    let rows = growth_rows(r);
+    if rows.is_empty() {
+        return None;
+    }
+    let xs: Vec<u64> = rows.iter().map(|(_, n)| n.data_rows as u64).collect();
+    let wasm = |i: usize, tape: bool| -> Option<f64> {
+        let w = r.speed.wasm.as_ref()?.get(i)?;
+        Some(if tape { w.tape_ns } else { w.hand_ns })
+    };
+    let series: Vec<(&str, &str, Vec<Option<f64>>)> = vec![
+        (
+            "native tape",
+            "#D55E00",
+            rows.iter().map(|(_, n)| Some(n.tape_ns)).collect(),
+        ),
+        (
+            "native hand",
+            "#E69F00",
+            rows.iter().map(|(_, n)| Some(n.hand_ns)).collect(),
+        ),
+        (
+            "wasm tape",
+            "#0072B2",
+            rows.iter().map(|(i, _)| wasm(*i, true)).collect(),
+        ),
+        (
+            "wasm hand",
+            "#56B4E9",
+            rows.iter().map(|(i, _)| wasm(*i, false)).collect(),
+        ),
+    ];
+    Some(log_log_chart(
+        "Student-t likelihood: ns per energy + gradient",
+        ("data rows", "nanoseconds"),
+        &xs,
+        &series,
+    ))
 }
 
 pub(super) const REST_OF_HEADER: &str = "\
@@ -319,6 +425,22 @@ pub(super) fn csv(r: &Report) -> String {
 
 /// A log-log chart of log Z RMSE against budget, one line per method, drawn by hand.
 pub fn svg_plot(title: &str, budgets: &[u64], series: &[(&str, &str, Vec<Option<f64>>)]) -> String {
+    log_log_chart(
+        title,
+        ("budget (energy evaluations)", "log Z RMSE"),
+        budgets,
+        series,
+    )
+}
+
+/// A log-log chart of series over the positive x values `xs` (labelled as budgets are), one
+/// line per series, drawn by hand; `labels` are the x and y axis titles.
+pub fn log_log_chart(
+    title: &str,
+    labels: (&str, &str),
+    budgets: &[u64],
+    series: &[(&str, &str, Vec<Option<f64>>)],
+) -> String {
     let (w, h) = (640.0, 400.0);
     let (left, right, top, bottom) = (70.0, 110.0, 40.0, 50.0);
     let xs: Vec<f64> = budgets
@@ -381,11 +503,13 @@ pub fn svg_plot(title: &str, budgets: &[u64], series: &[(&str, &str, Vec<Option<
         ));
     }
     o.push_str(&format!(
-        "<text x=\"{}\" y=\"{}\" text-anchor=\"middle\">budget (energy evaluations)</text>\n<text x=\"16\" y=\"{}\" text-anchor=\"middle\" transform=\"rotate(-90 16 {})\">log Z RMSE</text>\n",
+        "<text x=\"{}\" y=\"{}\" text-anchor=\"middle\">{}</text>\n<text x=\"16\" y=\"{}\" text-anchor=\"middle\" transform=\"rotate(-90 16 {})\">{}</text>\n",
         (left + w - right) / 2.0,
         h - 12.0,
+        xml(labels.0),
         (top + h - bottom) / 2.0,
-        (top + h - bottom) / 2.0
+        (top + h - bottom) / 2.0,
+        xml(labels.1)
     ));
     for (si, (name, colour, vals)) in series.iter().enumerate() {
         let pts: Vec<(f64, f64)> = vals
@@ -454,11 +578,12 @@ pub(super) fn write_files(r: &Report) -> Result<(), KilnError> {
     let io =
         |path: &str, e: std::io::Error| KilnError::usage(format!("cannot write `{path}`: {e}"));
     std::fs::create_dir_all("bench/plots").map_err(|e| io("bench/plots", e))?;
+    // Okabe & Ito's colour-blind-safe set (2008), as the page's plots use it.
     let colours = [
-        (Method::Kiln, "#d62728"),
-        (Method::Ais, "#1f77b4"),
-        (Method::Pt, "#2ca02c"),
-        (Method::Is, "#9467bd"),
+        (Method::Kiln, "#D55E00"),
+        (Method::Ais, "#0072B2"),
+        (Method::Pt, "#009E73"),
+        (Method::Is, "#CC79A7"),
     ];
     for t in &r.targets {
         let series: Vec<(&str, &str, Vec<Option<f64>>)> = colours
@@ -485,6 +610,10 @@ pub(super) fn write_files(r: &Report) -> Result<(), KilnError> {
             ),
         )
         .map_err(|e| io(&path, e))?;
+    }
+    if let Some(svg) = growth_rows_chart(r) {
+        let path = "bench/plots/growth-rows.svg";
+        std::fs::write(path, svg).map_err(|e| io(path, e))?;
     }
     // BENCHMARKS.md is shared (the browser benchmark keeps its own section): only the part
     // between our markers is replaced.
@@ -525,8 +654,8 @@ mod tests {
             "t",
             &[20_000, 100_000],
             &[
-                ("kiln", "#d62728", vec![Some(0.1), Some(0.03)]),
-                ("ais", "#1f77b4", vec![Some(0.5), None]),
+                ("kiln", "#D55E00", vec![Some(0.1), Some(0.03)]),
+                ("ais", "#0072B2", vec![Some(0.5), None]),
             ],
         );
         assert!(s.starts_with("<svg") && s.trim_end().ends_with("</svg>"));
