@@ -1,9 +1,10 @@
 //! Engine speed: nanoseconds per energy + gradient of the compiled formula tape against a
 //! hand-written Rust function of the same energy with its analytic gradient, for three energies
 //! of the benchmark (the egg crate; a Gaussian likelihood summed over the 272 Old Faithful
-//! eruption durations; the 8-D rotated product) and two likelihoods of 1000 data rows written
-//! with built-in densities (a Student-t location-scale likelihood, `logd_student`; a Poisson
-//! log-linear regression, `logd_poisson`). The same code runs natively (`kiln bench`) and
+//! eruption durations; the 8-D rotated product) and two likelihoods written
+//! with built-in densities (a Student-t location-scale likelihood, `logd_student`, over 10,
+//! 100, 1000 and 10 000 rows: how the cost grows with the data; a Poisson log-linear
+//! regression, `logd_poisson`, 1000 rows). The same code runs natively (`kiln bench`) and
 //! as WebAssembly under Node (`src/wasm_bench.rs`, `scripts/bench-wasm.mjs`); only the clock is
 //! passed in, because `std::time::Instant` does not exist on wasm32-unknown-unknown.
 //! Must not: read files or the clock itself.
@@ -237,8 +238,17 @@ fn poisson_sum_hand(v: &[f64], g: &mut [f64], data: &[f64]) -> f64 {
     -(l - data[2 * n])
 }
 
-/// Rows of the two likelihoods written with built-in densities.
+/// Rows of the Poisson regression written with a built-in density.
 const DENSITY_ROWS: usize = 1000;
+
+/// Row counts of the Student-t likelihood's growth series (one speed row each).
+pub const GROWTH_ROWS: [usize; 4] = [10, 100, 1000, 10_000];
+const STUDENT_NAMES: [&str; 4] = [
+    "Student-t likelihood via logd_student, 10 rows (2-D)",
+    "Student-t likelihood via logd_student, 100 rows (2-D)",
+    "Student-t likelihood via logd_student, 1000 rows (2-D)",
+    "Student-t likelihood via logd_student, 10000 rows (2-D)",
+];
 
 /// The 272 Old Faithful eruption durations of the benchmark's open-dataset target.
 pub fn faithful_eruptions() -> Vec<f64> {
@@ -298,9 +308,10 @@ fn cases() -> Vec<Case> {
         dim: d,
         rows: 0,
     };
-    // 1000 rows from a Student-t (df 4) around 3 with scale 0.8.
+    // The Student-t likelihood over 10, 100, 1000 and 10 000 rows (the first n of one sample
+    // from a Student-t, df 4, around 3 with scale 0.8): how the cost grows with the data.
     let mut data_rng = Stream::new(2, Purpose::Check, 1 << 36);
-    let ys: Vec<f64> = (0..DENSITY_ROWS)
+    let all_ys: Vec<f64> = (0..*GROWTH_ROWS.last().unwrap_or(&0))
         .map(|_| {
             let z = data_rng.normal();
             let chi2: f64 = (0..4)
@@ -316,15 +327,22 @@ fn cases() -> Vec<Case> {
         .into_iter()
         .map(|p| vec![2.5 + p[0], 0.5 + 0.6 * p[1]])
         .collect();
-    let student = Case {
-        name: "Student-t likelihood via logd_student, 1000 rows (2-D)",
-        tape: compile(STUDENT_SUM, &ms, &[("y", ys.clone())]),
-        hand: student_sum_hand,
-        rows: ys.len(),
-        data: ys,
-        points: student_points,
-        dim: 2,
-    };
+    let students: Vec<Case> = GROWTH_ROWS
+        .iter()
+        .zip(STUDENT_NAMES)
+        .map(|(&n, name)| {
+            let ys = all_ys[..n].to_vec();
+            Case {
+                name,
+                tape: compile(STUDENT_SUM, &ms, &[("y", ys.clone())]),
+                hand: student_sum_hand,
+                rows: n,
+                data: ys,
+                points: student_points.clone(),
+                dim: 2,
+            }
+        })
+        .collect();
     // 1000 counts of a Poisson regression, rate exp(0.3 + 0.9 x), x in [0, 2].
     let xs: Vec<f64> = (0..DENSITY_ROWS)
         .map(|_| 2.0 * data_rng.uniform())
@@ -366,7 +384,10 @@ fn cases() -> Vec<Case> {
         points: poisson_points,
         dim: 2,
     };
-    vec![egg, gauss, rot, student, poisson]
+    let mut out = vec![egg, gauss, rot];
+    out.extend(students);
+    out.push(poisson);
+    out
 }
 
 /// Times `f` over the points: the best of 5 repetitions of at least `min_ms` each, in ns per call.
