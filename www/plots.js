@@ -7,7 +7,8 @@
 // is handed, the page state or the engine (plots-view.js decides what to draw, and saves PNGs).
 import { quantiles } from './numbers.js';
 
-// Okabe & Ito's colour-blind-safe set (2008, "Color universal design"), ordered so that neighbouring modes differ strongly; yellow late (weak on white).
+// Okabe & Ito's colour-blind-safe set (2008, "Color universal design"), ordered so that
+// neighbouring modes differ strongly; yellow late (weak on white).
 const PALETTE = ['#0072B2', '#E69F00', '#009E73', '#D55E00', '#CC79A7', '#56B4E9', '#F0E442', '#000000'];
 const FONT = '12px system-ui, -apple-system, "Segoe UI", Roboto, "Helvetica Neue", Arial, sans-serif';
 const SMALL = '11px system-ui, -apple-system, "Segoe UI", Roboto, "Helvetica Neue", Arial, sans-serif';

@@ -299,11 +299,11 @@ pub fn run_part(quick: bool, part: &Part) -> Result<Report, KilnError> {
                 "kiln bench: engine speed (WebAssembly under Node), round {round} of {rounds}…"
             );
             let (rows, note) = wasm_speed(min_ms);
-            wasm = match (wasm.0, rows) {
-                (Some(old), Some(new)) => (Some(speed::fastest(&old, new)), note),
-                (None, Some(new)) => (Some(new), note),
-                (old, None) => (old, note),
+            let best = match rows {
+                Some(new) => Some(speed::fastest(wasm.0.as_deref().unwrap_or(&[]), new)),
+                None => wasm.0,
             };
+            wasm = (best, note);
         }
         (native, wasm)
     };

@@ -34,7 +34,7 @@ pub struct SpeedRow {
 type HandFn = fn(&[f64], &mut [f64], &[f64]) -> f64;
 
 struct Case {
-    name: &'static str,
+    name: String,
     tape: Evaluator,
     hand: HandFn,
     data: Vec<f64>,
@@ -243,12 +243,6 @@ const DENSITY_ROWS: usize = 1000;
 
 /// Row counts of the Student-t likelihood's growth series (one speed row each).
 pub const GROWTH_ROWS: [usize; 4] = [10, 100, 1000, 10_000];
-const STUDENT_NAMES: [&str; 4] = [
-    "Student-t likelihood via logd_student, 10 rows (2-D)",
-    "Student-t likelihood via logd_student, 100 rows (2-D)",
-    "Student-t likelihood via logd_student, 1000 rows (2-D)",
-    "Student-t likelihood via logd_student, 10000 rows (2-D)",
-];
 
 /// The 272 Old Faithful eruption durations of the benchmark's open-dataset target.
 pub fn faithful_eruptions() -> Vec<f64> {
@@ -273,7 +267,7 @@ fn cases() -> Vec<Case> {
     };
     let xy: Vec<String> = vec!["x".into(), "y".into()];
     let egg = Case {
-        name: "egg crate (2-D)",
+        name: "egg crate (2-D)".into(),
         tape: compile(EGG_CRATE, &xy, &[]),
         hand: egg_crate_hand,
         data: Vec::new(),
@@ -288,7 +282,7 @@ fn cases() -> Vec<Case> {
         .map(|p| vec![2.0 + 2.5 * p[0], 0.5 + 1.5 * p[1]])
         .collect();
     let gauss = Case {
-        name: "Gaussian likelihood, 272 rows (2-D)",
+        name: "Gaussian likelihood, 272 rows (2-D)".into(),
         tape: compile(GAUSSIAN_SUM, &ms, &[("y", y.clone())]),
         hand: gaussian_sum_hand,
         rows: y.len(),
@@ -300,7 +294,7 @@ fn cases() -> Vec<Case> {
     let vars: Vec<String> = (1..=d).map(|i| format!("x{i}")).collect();
     let h: Vec<f64> = householder(d).into_iter().flatten().collect();
     let rot = Case {
-        name: "rotated product (8-D)",
+        name: "rotated product (8-D)".into(),
         tape: compile(&rotated_product_formula(d), &vars, &[]),
         hand: rotated_8_hand,
         data: h,
@@ -329,11 +323,10 @@ fn cases() -> Vec<Case> {
         .collect();
     let students: Vec<Case> = GROWTH_ROWS
         .iter()
-        .zip(STUDENT_NAMES)
-        .map(|(&n, name)| {
+        .map(|&n| {
             let ys = all_ys[..n].to_vec();
             Case {
-                name,
+                name: format!("Student-t likelihood via logd_student, {n} rows (2-D)"),
                 tape: compile(STUDENT_SUM, &ms, &[("y", ys.clone())]),
                 hand: student_sum_hand,
                 rows: n,
@@ -376,7 +369,7 @@ fn cases() -> Vec<Case> {
         .map(|p| vec![0.1 + 0.4 * p[0], 0.7 + 0.4 * p[1]])
         .collect();
     let poisson = Case {
-        name: "Poisson regression via logd_poisson, 1000 rows (2-D)",
+        name: "Poisson regression via logd_poisson, 1000 rows (2-D)".into(),
         tape: compile(POISSON_SUM, &ab, &[("x", xs), ("k", ks)]),
         hand: poisson_sum_hand,
         rows: DENSITY_ROWS,
@@ -456,7 +449,7 @@ pub fn measure(now_ms: &mut dyn FnMut() -> f64, min_ms: f64) -> Vec<SpeedRow> {
         let data = c.data.clone();
         let hand_ns = time_ns(now_ms, min_ms, &points, &mut |x, g| hand(x, g, &data));
         out.push(SpeedRow {
-            energy: c.name.to_string(),
+            energy: c.name.clone(),
             dimension: c.dim,
             data_rows: c.rows,
             tape_ns,
