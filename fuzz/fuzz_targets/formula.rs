@@ -1,6 +1,6 @@
 //! Fuzzes formula parsing, checking, compilation, evaluation and gradients: never a panic,
-//! every error renders with its marker under the fault, and where the value is finite the gradient has the
-//! right length and evaluating twice gives the same bits.
+//! every error renders with its marker under the fault, and where the value is finite the
+//! gradient has the right length and evaluating twice gives the same bits.
 #![no_main]
 use libfuzzer_sys::fuzz_target;
 
