@@ -116,7 +116,11 @@ function renderLogZ(slot, r, check) {
     const cvText = cv && cv.used
       ? ' With control variates from the base: without them ' + fmtPM(r.log_z_plain, r.log_z_plain_se) + ' (' + str(cv.note) + ').'
       : '';
-    sub.textContent = '± is one standard error of the sampling (it cannot account for modes never found).' + cvText;
+    const pr = r.proposals;
+    const prText = pr && pr.used
+      ? ' Combined with the independence proposals: the tempered estimate alone ' + fmtPM(pr.log_z_tempered, pr.se_tempered) + ', the proposals alone ' + fmtPM(pr.log_z_proposals, pr.se_proposals) + ' (' + str(pr.note) + ').'
+      : '';
+    sub.textContent = '± is one standard error of the sampling (it cannot account for modes never found).' + cvText + prText;
   } else if (running) {
     val.classList.add('partial');
     val.textContent = fmtPM(running.log_z, running.log_z_se);

@@ -108,7 +108,7 @@ pub fn kiln_run(
     let t2 = Instant::now();
     let plan = &steppers[0].plan;
     let kept = &steppers[0].kept;
-    let lz = crate::estimate::log_z_with_controls(plan, kept);
+    let lz = crate::estimate::log_z_reported(plan, kept);
     let d = prep.target.dim();
     let mut out = Draws {
         dim: d,

@@ -25,6 +25,6 @@ pub mod summary;
 pub mod warnings;
 
 pub use crosscheck::{cross_checks, verdict, Agreement, CrossCheck, Verdict};
-pub use log_z::{log_z_estimate, log_z_with_controls, ControlSummary, LogZ};
+pub use log_z::{log_z_estimate, log_z_reported, ControlSummary, LogZ, ProposalSummary};
 pub use summary::{estimate, Diagnostics, Estimates, ModeEstimate, WeightedDraws};
 pub use warnings::warnings;

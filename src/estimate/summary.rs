@@ -7,7 +7,7 @@
 //! Must not: run chains or change the plan.
 
 use super::importance::importance_check;
-use super::log_z::{log_z_with_controls, ControlSummary, LogZ};
+use super::log_z::{log_z_reported, ControlSummary, LogZ, ProposalSummary};
 use crate::common::maths::{exp, ln, sqrt};
 use crate::common::stats::{ess_bulk, rhat, weighted_quantile};
 use crate::model::target::Target;
@@ -77,6 +77,8 @@ pub struct Estimates {
     pub log_z_plain: f64,
     pub log_z_plain_se: f64,
     pub control_variates: Option<ControlSummary>,
+    /// What the combination with the independence proposals' estimate did.
+    pub proposals: Option<ProposalSummary>,
     pub is_log_z: f64,
     pub is_log_z_se: f64,
     pub modes: Vec<ModeEstimate>,
@@ -156,7 +158,8 @@ pub fn estimate(
         plain: log_z_plain,
         plain_se: log_z_plain_se,
         control: control_variates,
-    } = log_z_with_controls(plan, records);
+        proposals,
+    } = log_z_reported(plan, records);
     let total = series.len();
     let n = total as f64;
     let lse1 = series.lse1;
@@ -314,6 +317,7 @@ pub fn estimate(
         log_z_plain,
         log_z_plain_se,
         control_variates,
+        proposals,
         is_log_z,
         is_log_z_se,
         modes,

@@ -210,6 +210,17 @@ pub fn run_text(r: &RunOutcome) -> String {
             let _ = writeln!(o, "  control variates {}", cv.note);
         }
     }
+    if let Some(p) = &r.est.proposals {
+        if p.used {
+            let _ = writeln!(
+                o,
+                "  tempered estimate alone {}, proposals alone {}; {}",
+                pm(p.log_z_tempered, p.se_tempered),
+                pm(p.log_z_proposals, p.se_proposals),
+                p.note
+            );
+        }
+    }
     let mut rows = vec![vec![
         "check".to_string(),
         "log Z".to_string(),

@@ -239,6 +239,9 @@ impl Chain {
             ..Record::default()
         };
         rec.z.reserve(iterations * d);
+        if plan.is_tempered() && plan.options.independence {
+            rec.proposal_log_w.reserve(iterations);
+        }
         let mut q = self.position(plan);
         let cheap_moves = plan.is_tempered() && plan.options.independence;
         for _ in 0..iterations {
@@ -304,6 +307,13 @@ impl Chain {
                     }
                     let (dp, log_qp) = self.tempered.delta_log_q(&zp);
                     let ratio_p = self.proposal_log_ratio(plan, &zp, log_qp);
+                    // log f(x′) − log q′(x′) = log ζ − Δ′ + log q(x′) − log q′(x′).
+                    let log_w = plan.base.log_zeta - dp + ratio_p;
+                    rec.proposal_log_w.push(if log_w.is_nan() {
+                        f64::NEG_INFINITY
+                    } else {
+                        log_w
+                    });
                     let log_a =
                         (ratio_p - self.beta * dp) - (self.log_ratio - self.beta * self.delta);
                     if dp.is_finite() && ratio_p.is_finite() && ln(self.rng.uniform()) < log_a {

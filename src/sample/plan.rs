@@ -72,6 +72,12 @@ pub struct Record {
     /// the β draw); `accept` is the mean over these.
     #[serde(default)]
     pub transitions: usize,
+    /// Per iteration, log f(x′) − log q′(x′) of the independence proposal x′ ~ q′ that the
+    /// iteration drew (f = e^{−E}; −∞ where f is zero or the energy is not a number): an
+    /// importance-sampling estimate of Z from draws that cost nothing extra (see
+    /// `estimate::log_z::combine_with_proposals`). Empty where no independence move was made.
+    #[serde(default)]
+    pub proposal_log_w: Vec<f64>,
 }
 
 /// Numbers in one encoded record besides its three arrays.
@@ -80,13 +86,13 @@ const RECORD_SCALARS: usize = 11;
 /// Encodes records as one flat array of numbers, the form in which the page's workers pass
 /// them to each other (a typed array, no text): per record `[chain, evaluations, eps, accept,
 /// divergences, leapfrogs, max_depth_hits, independence_accepted, iterations, transitions,
-/// len(z), z…, len(β), β…, δ…]` (δ has β's length). Every count is below 2⁵³, so the round
+/// len(z), z…, len(β), β…, δ…, len(w), w…]` (δ has β's length; w: `proposal_log_w`). Every count is below 2⁵³, so the round
 /// trip through f64 is exact, and so are the floats: [`decode_records`] gives back the same bits.
 pub fn encode_records(records: &[Record]) -> Vec<f64> {
     let mut out = Vec::with_capacity(
         records
             .iter()
-            .map(|r| RECORD_SCALARS + r.z.len() + 2 * r.beta.len())
+            .map(|r| RECORD_SCALARS + r.z.len() + 2 * r.beta.len() + 1 + r.proposal_log_w.len())
             .sum(),
     );
     for r in records {
@@ -107,6 +113,8 @@ pub fn encode_records(records: &[Record]) -> Vec<f64> {
         out.push(r.beta.len() as f64);
         out.extend_from_slice(&r.beta);
         out.extend_from_slice(&r.delta);
+        out.push(r.proposal_log_w.len() as f64);
+        out.extend_from_slice(&r.proposal_log_w);
     }
     out
 }
@@ -149,6 +157,16 @@ pub fn decode_records(data: &[f64]) -> Result<Vec<Record>, KilnError> {
         let beta = data[at..at + nb].to_vec();
         let delta = data[at + nb..at + 2 * nb].to_vec();
         at += 2 * nb;
+        if at >= data.len() {
+            return Err(bad("the proposals' weights are missing"));
+        }
+        let nw = count(data[at], "number of proposals")?;
+        at += 1;
+        if data.len() - at < nw {
+            return Err(bad("the proposals' weights are cut short"));
+        }
+        let proposal_log_w = data[at..at + nw].to_vec();
+        at += nw;
         records.push(Record {
             chain: count(h[0], "chain")?,
             evaluations: count(h[1], "evaluations")? as u64,
@@ -163,6 +181,7 @@ pub fn decode_records(data: &[f64]) -> Result<Vec<Record>, KilnError> {
             z,
             beta,
             delta,
+            proposal_log_w,
         });
     }
     Ok(records)
@@ -400,6 +419,15 @@ mod encoding_tests {
             independence_accepted: 17,
             iterations: n,
             transitions: n.saturating_sub(1),
+            proposal_log_w: (0..n)
+                .map(|i| {
+                    if i == 1 {
+                        f64::NEG_INFINITY
+                    } else {
+                        -3.25 + i as f64 / 7.0
+                    }
+                })
+                .collect(),
         }
     }
 
@@ -420,6 +448,7 @@ mod encoding_tests {
             assert_eq!(bits(&a.z), bits(&b.z));
             assert_eq!(bits(&a.beta), bits(&b.beta));
             assert_eq!(bits(&a.delta), bits(&b.delta));
+            assert_eq!(bits(&a.proposal_log_w), bits(&b.proposal_log_w));
             assert_eq!(a.eps.to_bits(), b.eps.to_bits());
         }
     }

@@ -75,6 +75,7 @@ fn merge_records(into: &mut Record, r: &Record) {
     into.z.extend_from_slice(&r.z);
     into.beta.extend_from_slice(&r.beta);
     into.delta.extend_from_slice(&r.delta);
+    into.proposal_log_w.extend_from_slice(&r.proposal_log_w);
     if n_old + n_new > 0.0 {
         into.accept = (into.accept * n_old + r.accept * n_new) / (n_old + n_new);
     }

@@ -99,6 +99,15 @@ fn efficiency(bias: &Bias, records: &[Record]) -> (f64, f64) {
         .iter()
         .map(|r| r.leapfrogs + r.iterations as u64)
         .sum();
+    (
+        ess(&series.per_chain(&z)) / evaluations.max(1) as f64,
+        under_covered_share(&series, records),
+    )
+}
+
+/// The share of the target's weight in draws where the base falls short of the target by more
+/// than e² (Δ < −2, weighted by p(1|x)); `series` is the records' own (see [`UNDER_COVERED`]).
+pub fn under_covered_share(series: &Series, records: &[Record]) -> f64 {
     let w = series.weights();
     let weight: f64 = w.iter().sum();
     let under: f64 = records
@@ -108,11 +117,12 @@ fn efficiency(bias: &Bias, records: &[Record]) -> (f64, f64) {
         .filter(|(d, _)| **d < -2.0)
         .map(|(_, a)| a)
         .sum();
-    (
-        ess(&series.per_chain(&z)) / evaluations.max(1) as f64,
-        // An empty sum is −0.0; print it as 0 the same way on every platform.
-        if under > 0.0 { under / weight } else { 0.0 },
-    )
+    // An empty sum is −0.0; print it as 0 the same way on every platform.
+    if under > 0.0 {
+        under / weight
+    } else {
+        0.0
+    }
 }
 
 /// Learning rate of the bias update after warm-up window `w` (counted from the last reset).
