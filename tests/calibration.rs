@@ -168,7 +168,7 @@ fn cases() -> Vec<Case> {
         source: "exact: a shear of a normal".into(),
         masses: vec![],
     });
-    // 8. A two-means mixture posterior on the Old Faithful eruptions (label switching): scipy.
+    // 9. A two-means mixture posterior on the Old Faithful eruptions (label switching): scipy.
     let bench: Value = serde_json::from_str(
         &std::fs::read_to_string(format!("{ROOT}/tests/reference/bench_values.json")).unwrap(),
     )
@@ -180,6 +180,22 @@ fn cases() -> Vec<Case> {
     .unwrap();
     let m = faithful["mode"].as_array().unwrap();
     let (a, b) = (m[0].as_f64().unwrap(), m[1].as_f64().unwrap());
+    // 8. The default demo, as the page opens it (settings included): scipy quadrature.
+    let beacon: Value = serde_json::from_str(
+        &std::fs::read_to_string(format!("{ROOT}/tests/reference/beacon_values.json")).unwrap(),
+    )
+    .unwrap();
+    let demo: Value = serde_json::from_str(
+        &std::fs::read_to_string(format!("{ROOT}/demo-targets/default-two-modes.json")).unwrap(),
+    )
+    .unwrap();
+    out.push(Case {
+        name: "default-demo-beacon",
+        spec: demo,
+        log_z: beacon["log_z"].as_f64().unwrap(),
+        source: "scipy quadrature (tests/reference/beacon.py)".into(),
+        masses: Vec::new(),
+    });
     out.push(Case {
         name: "two-means-label-switching",
         spec,

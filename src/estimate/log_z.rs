@@ -11,7 +11,7 @@
 //! Must not: run chains or change the plan.
 
 use super::control;
-use crate::common::maths::{exp, ln, log_sum_exp, sqrt};
+use crate::common::maths::{exp, ln, log_sum_exp, pow, sqrt};
 use crate::common::psis::{pareto_khat, KHAT_FINITE_VARIANCE};
 use crate::sample::series::{mean_square, Series};
 use crate::sample::warmup::{under_covered_share, UNDER_COVERED};
@@ -96,6 +96,15 @@ pub const CONTROL_MIN_GAIN: f64 = 1.5;
 /// by measurement: on x⁴ the apparent reductions of 100–1000× came with errors of about twice
 /// the uncapped SE; near-normal posteriors with reductions near 50× were already honest.)
 pub const CONTROL_MAX_GAIN: f64 = 25.0;
+/// Below that cap, the standard error credits the control variates with the apparent variance
+/// reduction g raised to this power (g^¾: 8 for an apparent 16×), for the same reason: the
+/// apparent reduction is itself estimated from the draws, and the larger it looks, the more of
+/// it is the residual's missing tail. (Chosen by measurement on the default demo, 84 seeds:
+/// crediting the full g gave 95 % intervals that covered the truth in 90.5 % of runs and errors
+/// 1.21 of the SE in root mean square, the runs with g above 8 being the worst; g^¾ gave
+/// 95.2 % and 0.97. Targets whose apparent g exceeds 25^{4/3} ≈ 73, such as x⁴, meet the cap
+/// either way.)
+pub const CONTROL_GAIN_CREDIT: f64 = 0.75;
 
 /// The log Z that Kiln reports from the kept records of a frozen plan: [`log_z_estimate`], with
 /// the control variates when they help ([`with_controls`]), combined with the independence
@@ -156,7 +165,12 @@ pub fn with_controls(plan: &Plan, records: &[Record]) -> (LogZ, Vec<f64>) {
     let se_raw = sqrt(var / e);
     let log_z = out.plain - adj.correction;
     let ratio = (out.plain_se * out.plain_se) / (se_raw * se_raw);
-    let se = se_raw.max(out.plain_se / sqrt(CONTROL_MAX_GAIN));
+    let credited = pow(ratio, CONTROL_GAIN_CREDIT).min(CONTROL_MAX_GAIN);
+    let se = if credited > 1.0 {
+        se_raw.max(out.plain_se / sqrt(credited))
+    } else {
+        se_raw
+    };
     let mut summary = ControlSummary {
         used: false,
         features: adj.features,
@@ -181,8 +195,8 @@ pub fn with_controls(plan: &Plan, records: &[Record]) -> (LogZ, Vec<f64>) {
             adj.features,
             adj.degree,
             ratio,
-            if ratio > CONTROL_MAX_GAIN {
-                format!(" (the standard error credits them with at most {CONTROL_MAX_GAIN}×)")
+            if credited < ratio {
+                format!(" (the standard error credits them with {credited:.1}×)")
             } else {
                 String::new()
             }
