@@ -26,6 +26,7 @@ pub(super) struct Job {
 #[derive(Clone, Debug)]
 pub(super) struct JobResult {
     pub(super) log_z: f64,
+    pub(super) log_z_se: f64,
     pub(super) mass_error: Option<f64>,
     pub(super) evaluations: u64,
     pub(super) seconds: f64,
@@ -45,16 +46,30 @@ pub(super) fn run_job(
         log_zeta: p.laplace.log_zeta,
     };
     let t0 = Instant::now();
-    let (log_z, evaluations, draws, tuning, seconds) = match job.method {
+    let (log_z, log_z_se, evaluations, draws, tuning, seconds) = match job.method {
         Method::Kiln => {
             let c = counts
                 .iter()
                 .find(|(ti, b, _)| *ti == job.target && *b == job.budget)
                 .map(|x| x.2);
             match c.map(|c| kiln_run(p, job.seed, c.warmup, c.draws, Some(job.budget))) {
-                Some(Ok(r)) => (r.log_z, r.evaluations, r.draws, r.notes, r.seconds),
-                Some(Err(e)) => (f64::NAN, 0, Draws::default(), e.render(), 0.0),
-                None => (f64::NAN, 0, Draws::default(), "no pilot".into(), 0.0),
+                Some(Ok(r)) => (
+                    r.log_z,
+                    r.log_z_se,
+                    r.evaluations,
+                    r.draws,
+                    r.notes,
+                    r.seconds,
+                ),
+                Some(Err(e)) => (f64::NAN, f64::NAN, 0, Draws::default(), e.render(), 0.0),
+                None => (
+                    f64::NAN,
+                    f64::NAN,
+                    0,
+                    Draws::default(),
+                    "no pilot".into(),
+                    0.0,
+                ),
             }
         }
         m => {
@@ -69,11 +84,12 @@ pub(super) fn run_job(
                 _ => baselines::plain_nuts(&p.target, &base, job.budget, job.seed),
             };
             let s = t0.elapsed().as_secs_f64();
-            (o.log_z, o.evaluations, o.draws, o.tuning, s)
+            (o.log_z, o.log_z_se, o.evaluations, o.draws, o.tuning, s)
         }
     };
     JobResult {
         log_z,
+        log_z_se,
         mass_error: t.groups.largest_error(&draws),
         evaluations,
         seconds,

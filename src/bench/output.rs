@@ -8,8 +8,9 @@ use super::speed;
 use super::Method;
 use crate::bench::command_output;
 use crate::bench::results::find;
-use crate::bench::results::GOAL_RATIO;
-use crate::bench::results::GOAL_TARGETS;
+use crate::bench::results::{
+    GOAL_RATIO, GOAL_TARGETS, GOOD_BASE_IS_RATIO, LARGE_BUDGET, MID_BUDGET, SMALL_BUDGET_RATIO,
+};
 use crate::common::error::KilnError;
 use crate::common::maths::ln;
 
@@ -128,25 +129,61 @@ pub fn markdown(r: &Report, files: bool) -> String {
         s.total_seconds,
         s.load_average
     ));
-    o.push_str(REST_OF_HEADER);
+    let defaults = crate::sample::SamplerOptions::new(0);
+    o.push_str(
+        &REST_OF_HEADER
+            .replace("{kiln_chains}", &defaults.chains.to_string())
+            .replace("{kiln_warmup}", &defaults.warmup.to_string())
+            .replace("{kiln_draws}", &defaults.draws.to_string()),
+    );
     // Goals.
     o.push_str("\n### Goals\n\n");
     o.push_str(&format!(
-        "Accuracy goal: Kiln's log Z RMSE ≤ {GOAL_RATIO}× AIS's and ≤ {GOAL_RATIO}× PT's on at least {GOAL_TARGETS} of the {} targets.\n\n",
-        r.targets.len()
+        "Accuracy goals: at budgets up to {} Kiln's log Z RMSE ≤ {SMALL_BUDGET_RATIO}× the better of AIS's and PT's on every target; at {} ≤ {GOAL_RATIO}× both on at least {} of the {} targets; from {} ≤ {GOAL_RATIO}× both on every target; at every budget, where the base is good (importance sampling from it beats both AIS and PT in this run), ≤ {GOOD_BASE_IS_RATIO:.1}× importance sampling's. Beside them, the lowest ±2 SE coverage of Kiln's log Z over the targets (per target in the tables below): the error bars must stay honest at every budget.\n\n",
+        budget_label(MID_BUDGET),
+        budget_label(MID_BUDGET),
+        GOAL_TARGETS.min(r.targets.len()),
+        r.targets.len(),
+        budget_label(LARGE_BUDGET),
     ));
-    o.push_str("| budget | ≤ 0.3× AIS | ≤ 0.3× PT | both | goal |\n|---|---|---|---|---|\n");
+    o.push_str("| budget | ≤ 0.5× the better of AIS, PT | ≤ 0.3× AIS | ≤ 0.3× PT | ≤ 0.3× both | base good: Kiln ≤ 1.0× IS | lowest Kiln coverage | goals |\n|---|---|---|---|---|---|---|---|\n");
+    let list = |v: &[String]| {
+        if v.is_empty() {
+            "0".to_string()
+        } else {
+            format!("{} ({})", v.len(), v.join(", "))
+        }
+    };
     for g in &r.goals.accuracy {
         o.push_str(&format!(
-            "| {} | {} ({}) | {} ({}) | {} ({}) | {} |\n",
+            "| {} | {} | {} | {} | {} | {} of {}{} | {} | {} |\n",
             budget_label(g.budget),
-            g.beats_ais.len(),
-            g.beats_ais.join(", "),
-            g.beats_pt.len(),
-            g.beats_pt.join(", "),
-            g.beats_both.len(),
-            g.beats_both.join(", "),
-            if g.met { "met" } else { "missed" }
+            list(&g.half_of_better),
+            list(&g.beats_ais),
+            list(&g.beats_pt),
+            list(&g.beats_both),
+            g.matches_is.len(),
+            g.good_base.len(),
+            if g.good_base.is_empty() {
+                String::new()
+            } else {
+                format!(" ({})", g.good_base.join(", "))
+            },
+            g.lowest_coverage
+                .as_ref()
+                .map_or("—".to_string(), |(t, c)| format!(
+                    "{:.0} % ({t})",
+                    100.0 * c
+                )),
+            if g.goals.is_empty() {
+                "—".to_string()
+            } else {
+                g.goals
+                    .iter()
+                    .map(|(what, met)| format!("{what}: {}", if *met { "met" } else { "missed" }))
+                    .collect::<Vec<_>>()
+                    .join("; ")
+            }
         ));
     }
     o.push_str(&format!(
@@ -185,16 +222,19 @@ pub fn markdown(r: &Report, files: bool) -> String {
             "Mode search (shared, not in the budgets): {} modes, {} evaluations, {:.2} s; Laplace log ζ = {:.4}.\n\n",
             t.modes, t.mode_search_evaluations, t.mode_search_seconds, t.laplace_log_z
         ));
-        o.push_str("| budget | method | log Z RMSE | log Z bias | mass error | seconds | evaluations |\n|---|---|---|---|---|---|---|\n");
+        o.push_str("| budget | method | log Z RMSE | log Z bias | mean SE | ±2 SE coverage | mass error | seconds | evaluations |\n|---|---|---|---|---|---|---|---|---|\n");
         for &b in &s.budgets {
             for m in Method::ALL {
                 if let Some(row) = find(&r.rows, &t.name, m, b) {
                     o.push_str(&format!(
-                        "| {} | {} | {} | {} | {} | {:.3} | {:.0} |\n",
+                        "| {} | {} | {} | {} | {} | {} | {} | {:.3} | {:.0} |\n",
                         budget_label(b),
                         m.name(),
                         rmse_cell(row),
                         num(row.log_z_bias),
+                        num(row.log_z_mean_se),
+                        row.coverage
+                            .map_or("—".to_string(), |c| format!("{:.0} %", 100.0 * c)),
                         num(row.mass_error),
                         row.seconds,
                         row.evaluations
@@ -387,7 +427,7 @@ pub(super) const REST_OF_HEADER: &str = "\
 - **Seeds.** Each method runs once per seed; log Z RMSE is the root mean square of (estimate − reference) over the seeds. References come from outside Kiln: exact identities, scipy quadrature (scripts and versions in `tests/reference/`), and published values where they exist (quoted beside the scipy value, which agrees with them to their two decimals and is used because it is more precise).
 - **Mode masses.** Every method's weighted draws are assigned to modes by one rule per target (nearest peak, half-plane, sign pattern of y = H x, order of the two means), against masses that are exact by symmetry or by construction.
 - **Wall time.** Every run is single-threaded (Kiln's chains run one after another, as single-chain workers of one run that exchange records, which gives the numbers `kiln run` gives); two runs share the machine's two cores.
-- **Kiln** runs as `kiln run` does (4 chains, alternating method, NUTS, the defensive independence proposal, bias learning, candidate bases judged on held-out warm-up draws, the warm-up trial of mostly independence moves, control variates when they help), about a third of the budget in warm-up as in its defaults (1000 warm-up : 2000 kept). One pilot run per target and budget (seed 1000001, not scored, not counted) converts the budget into a warm-up length; a scored run has room for as many kept iterations as the rest of the budget could buy at one evaluation each (its cost per iteration depends on what its own warm-up chose) and stops at the end of the chunk of kept draws (10 iterations per chain; the chain is the same however its kept draws are chunked) after which the next would pass the budget. Its log Z is the one `kiln run` reports (with control variates when they are used).
+- **Kiln** runs as `kiln run` does ({kiln_chains} chains, alternating method, NUTS, the defensive independence proposal, bias learning, candidate bases judged on held-out warm-up draws, the warm-up trial of mostly independence moves, control variates when they help), about a third of the budget in warm-up as in its defaults ({kiln_warmup} warm-up : {kiln_draws} kept). One pilot run per target and budget (seed 1000001, not scored, not counted) converts the budget into a warm-up length; a scored run has room for as many kept iterations as the rest of the budget could buy at one evaluation each (its cost per iteration depends on what its own warm-up chose) and stops at the end of the chunk of kept draws (10 iterations per chain; the chain is the same however its kept draws are chunked) after which the next would pass the budget. Its log Z is the one `kiln run` reports (with control variates, and combined with the independence proposals' importance-sampling estimate, when they are used).
 - **Targets.** With Gaussian components a mixture's Laplace base is the target itself, so every method would return log Z to round-off; the mixture and the rotated products therefore use skewed modes (each mode two overlapping Gaussians), which keep the exact identities.
 
 ### How each baseline is tuned
@@ -402,18 +442,20 @@ All baselines move in the same whitened coordinates as Kiln (the base's within-m
 
 pub(super) fn csv(r: &Report) -> String {
     let mut o = String::from(
-        "target,method,budget,seeds,log_z_rmse,log_z_bias,mass_error,seconds,evaluations,failures\n",
+        "target,method,budget,seeds,log_z_rmse,log_z_bias,log_z_mean_se,coverage,mass_error,seconds,evaluations,failures\n",
     );
     let f = |v: Option<f64>| v.map_or(String::new(), |x| format!("{x:.6e}"));
     for row in &r.rows {
         o.push_str(&format!(
-            "{},{},{},{},{},{},{},{:.4},{:.0},{}\n",
+            "{},{},{},{},{},{},{},{},{},{:.4},{:.0},{}\n",
             row.target,
             row.method,
             row.budget,
             row.seeds,
             f(row.log_z_rmse),
             f(row.log_z_bias),
+            f(row.log_z_mean_se),
+            f(row.coverage),
             f(row.mass_error),
             row.seconds,
             row.evaluations,
