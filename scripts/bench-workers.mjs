@@ -42,8 +42,9 @@ async function once(browser, server, model, workers) {
     await new Promise((r) => setTimeout(r, 10));
   }
   const total = Date.now() - t0;
+  const timings = JSON.parse(await page.evaluate(() => document.body.dataset.runTimings || '{}'));
   await context.close();
-  return { first, total };
+  return { first, total, timings };
 }
 
 const server = await startServer();
@@ -55,7 +56,9 @@ try {
       const reps = [];
       for (let r = 0; r < REPS; r++) reps.push(await once(browser, server, model, w));
       const med = (k) => reps.map((x) => x[k]).sort((a, b) => a - b)[Math.floor(reps.length / 2)];
-      rows.push({ model: model.name, workers: w, first: med('first'), total: med('total') });
+      // The breakdown of the run whose total is the median.
+      const mid = reps.slice().sort((a, b) => a.total - b.total)[Math.floor(reps.length / 2)];
+      rows.push({ model: model.name, workers: w, first: med('first'), total: med('total'), timings: mid.timings });
       console.log(rows[rows.length - 1]);
     }
   }
@@ -77,6 +80,19 @@ const lines = [
   '| model | workers | Run → first streamed estimate | Run → final result |',
   '|---|---|---|---|',
   ...rows.map((r) => `| ${r.model} | ${r.workers} | ${s(r.first)} | ${s(r.total)} |`),
+  '',
+  'Where the time went (the median run; the engine driver\'s own clock, `timings` in www/engine.js): starting the workers '
+    + '(loading the WebAssembly module in each), the leader\'s mode search, the followers taking its modes, waiting for '
+    + 'every worker\'s share of each step (the chains), waiting for every worker to absorb all records (what warm-up '
+    + 'learns, repeated in each worker so that they stay identical), and the final summary (estimates and checks, leader only).',
+  '',
+  '| model | workers | start | mode search | followers | steps (chains) | absorbs | summary | steps |',
+  '|---|---|---|---|---|---|---|---|---|',
+  ...rows.map((r) => {
+    const t = r.timings || {};
+    return `| ${r.model} | ${r.workers} | ${s(t.start || 0)} | ${s(t.search || 0)} | ${s(t.follow || 0)} | `
+      + `${s(t.steps || 0)} | ${s(t.absorbs || 0)} | ${s(t.finish || 0)} | ${t.stepCount || 0} |`;
+  }),
   '<!-- workers:end -->',
 ];
 const file = path.join(ROOT, 'BENCHMARKS.md');

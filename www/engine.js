@@ -169,8 +169,15 @@ export function createEngine(options) {
     async function drive() {
       const t0 = performance.now();
       if (on.onPhase) on.onPhase('Starting ' + W + (W === 1 ? ' worker' : ' workers') + '…');
+      // Where the time goes (ms), for the workers benchmark: starting the workers, the
+      // leader's mode search, the followers taking its modes, waiting for every worker's step,
+      // waiting for every worker's absorb, and the final summary.
+      const timings = { start: 0, search: 0, follow: 0, steps: 0, absorbs: 0, finish: 0, stepCount: 0 };
+      let mark = performance.now();
+      const lap = function (key) { const now = performance.now(); timings[key] += now - mark; mark = now; };
       for (let w = 0; w < W; w++) channels.push(newChannel());
       await Promise.all(channels.map(function (ch) { return ch.ready; }));
+      lap('start');
       if (on.onPhase) on.onPhase('Searching for modes…');
       const overridesJson = JSON.stringify(overrides || {});
       const ownedBy = function (w) {
@@ -182,10 +189,12 @@ export function createEngine(options) {
       // run their chains (the same plan, so the same bits as one worker).
       const lead = await channels[0].call({ type: 'session', spec: specJson,
         overrides: overridesJson, owned: ownedBy(0) });
+      lap('search');
       const follows = await Promise.all(channels.slice(1).map(function (ch, i) {
         return ch.call({ type: 'follow', spec: specJson, overrides: overridesJson,
           owned: ownedBy(i + 1), modes: lead.modes });
       }));
+      lap('follow');
       const readies = [lead].concat(follows);
       let state = readies[0];
       if (state.chains !== chains) {
@@ -201,6 +210,8 @@ export function createEngine(options) {
       let lastProgress = null;
       while (state.stepKind !== 'done') {
         const recs = await Promise.all(channels.map(function (ch) { return ch.call({ type: 'step' }); }));
+        lap('steps');
+        timings.stepCount += 1;
         // Every worker's records, in worker order, as one Float64Array (copied to each).
         let length = 0;
         for (const r of recs) length += r.records.length;
@@ -210,6 +221,7 @@ export function createEngine(options) {
         const absorbed = await Promise.all(channels.map(function (ch) {
           return ch.call({ type: 'absorb', all: all });
         }));
+        lap('absorbs');
         if (state.stepKind === 'warmup') warmDone += Number(state.stepIterations) || 0;
         state = absorbed[0];
         const p = state.progress || {};
@@ -234,9 +246,10 @@ export function createEngine(options) {
       }
       if (on.onPhase) on.onPhase('Summarising…');
       const fin = await channels[0].call({ type: 'finish', maxPoints: 4000 });
+      lap('finish');
       stopAll();
       return { result: fin.result, draws: fin.draws, csv: fin.csv, progress: lastProgress,
-        elapsed: performance.now() - t0, workers: W };
+        elapsed: performance.now() - t0, workers: W, timings: timings };
     }
 
     const done = drive().catch(function (e) {

@@ -83,6 +83,8 @@ export async function startRun(slotId, queueRest) {
       status: 'done', result: fin.result, draws: normaliseDraws(fin.draws, D), csv: fin.csv,
       progress: fin.progress || run.progress, elapsed: fin.elapsed, workers: fin.workers, earlier: null,
     });
+    // Where the run's time went, for the workers benchmark (scripts/bench-workers.mjs).
+    document.body.dataset.runTimings = JSON.stringify(fin.timings || {});
     finishRun(slot, run, running, null);
   }, function (e) { finishRun(slot, run, running, e); });
 }

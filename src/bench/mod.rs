@@ -16,6 +16,7 @@
 
 pub mod baselines;
 pub mod budget;
+pub mod growth;
 pub mod jobs;
 pub mod output;
 pub mod results;
@@ -151,6 +152,7 @@ fn command_output(cmd: &str, arg: &str) -> Option<String> {
 struct Options {
     quick: bool,
     json: bool,
+    growth: bool,
 }
 
 /// A part of the benchmark, for development: `--targets a,b`, `--methods kiln,ais`,
@@ -174,12 +176,13 @@ impl Part {
     }
 }
 
-const USAGE: &str = "kiln bench [--quick] [--json] [--targets a,b] [--methods kiln,ais,pt,is,nuts] [--budgets 2e4,2e5] [--seeds N] [--no-speed]";
+const USAGE: &str = "kiln bench [--quick] [--json] [--targets a,b] [--methods kiln,ais,pt,is,nuts] [--budgets 2e4,2e5] [--seeds N] [--no-speed] | kiln bench --growth [--json]";
 
 fn options(args: &[String]) -> Result<(Options, Part), KilnError> {
     let mut o = Options {
         quick: false,
         json: false,
+        growth: false,
     };
     let mut part = Part::default();
     let mut it = args.iter();
@@ -193,6 +196,7 @@ fn options(args: &[String]) -> Result<(Options, Part), KilnError> {
         match a.as_str() {
             "--quick" => o.quick = true,
             "--json" => o.json = true,
+            "--growth" => o.growth = true,
             "--no-speed" => part.no_speed = true,
             "--targets" => {
                 let v = value("--targets")?;
@@ -253,6 +257,15 @@ fn options(args: &[String]) -> Result<(Options, Part), KilnError> {
 /// BENCHMARKS.csv and bench/plots/*.svg in the current directory (the repository root).
 pub fn command(args: &[String]) -> Result<String, KilnError> {
     let (o, part) = options(args)?;
+    if o.growth {
+        if o.quick || !part.is_whole() {
+            return Err(KilnError::usage(
+                "`--growth` runs on its own (only `--json` goes with it)".to_string(),
+            )
+            .with_hint(USAGE));
+        }
+        return growth::growth_command(o.json);
+    }
     let whole = part.is_whole();
     let report = run_part(o.quick, &part)?;
     if !o.quick && whole {

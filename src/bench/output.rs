@@ -593,10 +593,16 @@ pub(super) const SECTION_END: &str = "<!-- kiln-bench:end -->";
 
 /// `old` with the benchmark section replaced by `body` (added after the title if absent).
 pub(super) fn merge_section(old: &str, body: &str) -> String {
-    let block = format!("{SECTION_START}\n{}\n{SECTION_END}", body.trim_end());
-    if let (Some(a), Some(b)) = (old.find(SECTION_START), old.find(SECTION_END)) {
+    merge_marked(old, SECTION_START, SECTION_END, body)
+}
+
+/// `old` with the part between the markers `start` and `end` replaced by `body` (added after
+/// the title when the markers are not there yet).
+pub(super) fn merge_marked(old: &str, start: &str, end: &str, body: &str) -> String {
+    let block = format!("{start}\n{}\n{end}", body.trim_end());
+    if let (Some(a), Some(b)) = (old.find(start), old.find(end)) {
         if a < b {
-            return format!("{}{block}{}", &old[..a], &old[b + SECTION_END.len()..]);
+            return format!("{}{block}{}", &old[..a], &old[b + end.len()..]);
         }
     }
     if old.trim().is_empty() {

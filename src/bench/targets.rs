@@ -280,9 +280,100 @@ pub fn targets() -> Vec<BenchTarget> {
     out
 }
 
+/// The growth family (`bench::growth`): two separated clusters in `d` unknowns, N(−5 e₁, I)
+/// with weight 0.7 and a Student-t (ν = 4, unit scale) at +5 e₁ with weight 0.3. Both
+/// components are normalised densities, so log Z = 0 exactly; the clusters are 10 units apart,
+/// so their masses are their weights to well within the benchmark's accuracy.
+pub fn two_clusters(d: usize) -> BenchTarget {
+    let names: Vec<String> = (1..=d).map(|i| format!("x{i}")).collect();
+    let squares = |shift: &str| -> String {
+        names
+            .iter()
+            .enumerate()
+            .map(|(i, n)| {
+                if i == 0 {
+                    format!("({n} {shift})^2")
+                } else {
+                    format!("{n}^2")
+                }
+            })
+            .collect::<Vec<_>>()
+            .join(" + ")
+    };
+    let half = d as f64 / 2.0;
+    // log N(x; −5 e₁, I) and log t₄(x; +5 e₁, I) (the multivariate t's normaliser:
+    // Γ((ν + d)/2) / (Γ(ν/2) (νπ)^(d/2))).
+    let formula = format!(
+        "logsumexp(log(0.7) - {half} * log(2 * pi) - 0.5 * ({}), log(0.3) + lgamma({}) - lgamma(2) - {half} * log(4 * pi) - {} * log(1 + ({}) / 4))",
+        squares("+ 5"),
+        (4.0 + d as f64) / 2.0,
+        (4.0 + d as f64) / 2.0,
+        squares("- 5")
+    );
+    let vars: Vec<Value> = names.iter().map(|n| json!({"name": n})).collect();
+    let spec = json!({"variables": vars, "log_density": formula});
+    let mut left = vec![0.0; d];
+    left[0] = -5.0;
+    let mut right = vec![0.0; d];
+    right[0] = 5.0;
+    BenchTarget {
+        name: "two-clusters",
+        description: format!("two separated clusters, one normal and one Student-t (ν = 4), weights 0.7 : 0.3 ({d}-D)"),
+        spec: parse("two-clusters", &spec),
+        log_z: 0.0,
+        reference: "exact: both components normalised".into(),
+        groups: Groups::Nearest {
+            centres: vec![left, right],
+            masses: vec![0.7, 0.3],
+        },
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    #[allow(clippy::disallowed_methods)] // the reference uses the platform maths on purpose
+    fn the_growth_family_is_its_two_normalised_densities() {
+        // Exact identity: the energy is −log(0.7 N(x; −5e₁, I) + 0.3 t₄(x; 5e₁, I)), with
+        // t_ν's density Γ((ν+d)/2) / (Γ(ν/2) (νπ)^(d/2)) (1 + |y|²/ν)^(−(ν+d)/2), written
+        // here independently of the formula text (unbounded unknowns: z = x).
+        for d in [2usize, 5, 16] {
+            let t = two_clusters(d);
+            let target = crate::model::target::Target::from_spec(&t.spec).unwrap();
+            let mut ev = target.evaluator();
+            for k in 0..4 {
+                let x: Vec<f64> = (0..d)
+                    .map(|i| (k as f64 - 1.5) * 3.0 + 0.1 * i as f64)
+                    .collect();
+                let s_left: f64 = x
+                    .iter()
+                    .enumerate()
+                    .map(|(i, v)| if i == 0 { (v + 5.0).powi(2) } else { v * v })
+                    .sum();
+                let s_right: f64 = x
+                    .iter()
+                    .enumerate()
+                    .map(|(i, v)| if i == 0 { (v - 5.0).powi(2) } else { v * v })
+                    .sum();
+                let h = d as f64 / 2.0;
+                let normal = (-h * (2.0 * std::f64::consts::PI).ln() - 0.5 * s_left).exp();
+                let nu = 4.0;
+                let student = (libm::lgamma((nu + d as f64) / 2.0)
+                    - libm::lgamma(nu / 2.0)
+                    - h * (nu * std::f64::consts::PI).ln()
+                    - (nu + d as f64) / 2.0 * (1.0 + s_right / nu).ln())
+                .exp();
+                let want = -(0.7 * normal + 0.3 * student).ln();
+                let got = ev.energy(&x);
+                assert!(
+                    (got - want).abs() < 1e-10 * (1.0 + want.abs()),
+                    "d {d}, x {x:?}: {got} vs {want}"
+                );
+            }
+        }
+    }
 
     #[test]
     fn exact_masses_add_up_and_groups_find_them() {
