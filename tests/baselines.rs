@@ -224,8 +224,15 @@ fn kiln_at_a_budget_stops_near_it_and_gets_the_exact_log_z() {
     for budget in [20_000u64, 60_000] {
         let counts = kiln::bench::kiln_counts(&p, budget).unwrap();
         for seed in 1..=2 {
-            let r =
-                kiln::bench::kiln_run(&p, seed, counts.warmup, counts.draws, Some(budget)).unwrap();
+            let r = kiln::bench::kiln_run(
+                &p,
+                seed,
+                kiln::sample::options::chains_for_budget(budget),
+                counts.warmup,
+                counts.draws,
+                Some(budget),
+            )
+            .unwrap();
             assert!(
                 r.evaluations <= budget + budget / 50 && r.evaluations >= budget * 9 / 10,
                 "Kiln: {} evaluations for a budget of {budget}",

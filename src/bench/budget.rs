@@ -7,6 +7,7 @@
 use crate::bench::baselines::Draws;
 use crate::common::error::KilnError;
 use crate::run::Prepared;
+use crate::sample::options::chains_for_budget;
 use crate::sample::{SamplerOptions, Step, Stepper};
 use serde::Serialize;
 use std::time::Instant;
@@ -33,18 +34,20 @@ pub struct KilnRun {
 /// Iterations per sampling step of a run stopped by a budget.
 pub(super) const BUDGET_STEP_ITERATIONS: usize = 10;
 
-/// Runs Kiln's sampler on a prepared target with `warmup` and `draws` iterations per chain
+/// Runs Kiln's sampler on a prepared target with `chains` chains of `warmup` and `draws` iterations
 /// (defaults otherwise). With a budget, stops at the end of a chunk of kept draws
 /// ([`BUDGET_STEP_ITERATIONS`] iterations) when the next one would pass it, so runs use at most
 /// about the budget.
 pub fn kiln_run(
     prep: &Prepared,
     seed: u64,
+    chains: usize,
     warmup: usize,
     draws: usize,
     budget: Option<u64>,
 ) -> Result<KilnRun, KilnError> {
     let mut opts = SamplerOptions::new(seed);
+    opts.chains = chains;
     opts.warmup = warmup.max(10);
     opts.draws = draws.max(10);
     let chains = opts.chains;
@@ -175,13 +178,14 @@ pub struct KilnCounts {
 }
 
 pub fn kiln_counts(prep: &Prepared, budget: u64) -> Result<KilnCounts, KilnError> {
-    let chains = SamplerOptions::new(1).chains as f64;
+    let n_chains = chains_for_budget(budget);
+    let chains = n_chains as f64;
     let guess = 10.0;
     let b = budget as f64;
     let iterations = b / (chains * guess);
     let w0 = ((iterations / 3.0) as usize).max(20);
     let n0 = ((2.0 * iterations / 3.0) as usize).max(20);
-    let pilot = kiln_run(prep, PILOT_SEED, w0, n0, None)?;
+    let pilot = kiln_run(prep, PILOT_SEED, n_chains, w0, n0, None)?;
     let cw = pilot.warmup_evaluations as f64 / (chains * w0 as f64);
     let cs =
         (pilot.evaluations - pilot.warmup_evaluations) as f64 / (chains * pilot.kept.max(1) as f64);

@@ -64,3 +64,36 @@ impl SamplerOptions {
         }
     }
 }
+
+/// Energy evaluations each chain should have, at least, in a run limited to a budget.
+pub const EVALUATIONS_PER_CHAIN: u64 = 25_000;
+/// Fewest chains of a run limited to a budget (the multi-chain ESS and R-hat need several).
+pub const MIN_BUDGET_CHAINS: usize = 4;
+
+/// The number of chains for a run limited to `budget` energy evaluations: one per
+/// [`EVALUATIONS_PER_CHAIN`], between [`MIN_BUDGET_CHAINS`] and the default 8. With a small
+/// budget, 8 chains each get too short a warm-up to learn their step size and the bias.
+/// Measured (`kiln bench --methods kiln`, 16 seeds, log Z RMSE with 8 / 4 / 2 chains): egg crate
+/// at 2e4 0.054 / 0.014 / 0.27 and at 6e4 0.077 / 0.028 / 0.019; separated mixture 4.7e-3 /
+/// 3.1e-3 / 8.3e-4 and 1.3e-3 / 5.6e-4 / 1.6e-3; 8-D rotated product 7.2e-3 / 6.8e-3 / 5.7e-3 and
+/// 3.5e-3 / 3.1e-3 / 3.3e-3; two shells 0.19 / 0.41 / 0.26 and 0.15 / 0.12 / 0.10. Two chains
+/// were erratic (the egg crate at 2e4), four the steadiest; from 2e5 the default 8 stands (its
+/// coverage at full length is in src/TUNING.md, "Sampler defaults").
+pub fn chains_for_budget(budget: u64) -> usize {
+    ((budget / EVALUATIONS_PER_CHAIN) as usize)
+        .clamp(MIN_BUDGET_CHAINS, SamplerOptions::new(0).chains)
+}
+
+#[cfg(test)]
+mod budget_tests {
+    use super::*;
+
+    #[test]
+    fn chains_grow_with_the_budget_between_four_and_eight() {
+        assert_eq!(chains_for_budget(1_000), 4);
+        assert_eq!(chains_for_budget(60_000), 4);
+        assert_eq!(chains_for_budget(150_000), 6);
+        assert_eq!(chains_for_budget(200_000), 8);
+        assert_eq!(chains_for_budget(10_000_000), 8);
+    }
+}
