@@ -84,14 +84,15 @@ const lines = [
   'Where the time went (the median run; the engine driver\'s own clock, `timings` in www/engine.js): starting the workers '
     + '(loading the WebAssembly module in each), the leader\'s mode search, the followers taking its modes, waiting for '
     + 'every worker\'s share of each step (the chains), waiting for every worker to absorb all records (what warm-up '
-    + 'learns, repeated in each worker so that they stay identical), and the final summary (estimates and checks, leader only).',
+    + 'learns, repeated in each worker so that they stay identical), the estimates and independent checks after the last '
+    + 'step (leader only), and fetching the result and draws.',
   '',
-  '| model | workers | start | mode search | followers | steps (chains) | absorbs | summary | steps |',
-  '|---|---|---|---|---|---|---|---|---|',
+  '| model | workers | start | mode search | followers | steps (chains) | absorbs | estimates and checks | result | steps |',
+  '|---|---|---|---|---|---|---|---|---|---|',
   ...rows.map((r) => {
     const t = r.timings || {};
     return `| ${r.model} | ${r.workers} | ${s(t.start || 0)} | ${s(t.search || 0)} | ${s(t.follow || 0)} | `
-      + `${s(t.steps || 0)} | ${s(t.absorbs || 0)} | ${s(t.finish || 0)} | ${t.stepCount || 0} |`;
+      + `${s(t.steps || 0)} | ${s(t.absorbs || 0)} | ${s(t.estimates || 0)} | ${s(t.finish || 0)} | ${t.stepCount || 0} |`;
   }),
   '<!-- workers:end -->',
 ];

@@ -171,8 +171,8 @@ export function createEngine(options) {
       if (on.onPhase) on.onPhase('Starting ' + W + (W === 1 ? ' worker' : ' workers') + '…');
       // Where the time goes (ms), for the workers benchmark: starting the workers, the
       // leader's mode search, the followers taking its modes, waiting for every worker's step,
-      // waiting for every worker's absorb, and the final summary.
-      const timings = { start: 0, search: 0, follow: 0, steps: 0, absorbs: 0, finish: 0, stepCount: 0 };
+      // waiting for every worker's absorb, the estimates and checks, and fetching the result.
+      const timings = { start: 0, search: 0, follow: 0, steps: 0, absorbs: 0, estimates: 0, finish: 0, stepCount: 0 };
       let mark = performance.now();
       const lap = function (key) { const now = performance.now(); timings[key] += now - mark; mark = now; };
       for (let w = 0; w < W; w++) channels.push(newChannel());
@@ -221,7 +221,8 @@ export function createEngine(options) {
         const absorbed = await Promise.all(channels.map(function (ch) {
           return ch.call({ type: 'absorb', all: all });
         }));
-        lap('absorbs');
+        // The last absorb also makes the estimates and the checks (the leader's `finish`).
+        lap(absorbed[0].stepKind === 'done' ? 'estimates' : 'absorbs');
         if (state.stepKind === 'warmup') warmDone += Number(state.stepIterations) || 0;
         state = absorbed[0];
         const p = state.progress || {};
