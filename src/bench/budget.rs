@@ -136,7 +136,7 @@ pub fn kiln_run(
         draws: out,
         seconds,
         notes: format!(
-            "log Z ± {:.2e} (ESS {:.0}); {} warm-up + {} kept iterations × {chains} chains; Hamiltonian moves in {:.1}% of kept iterations{}{}",
+            "log Z ± {:.2e} (ESS {:.0}); {} warm-up + {} kept iterations × {chains} chains; Hamiltonian moves in {:.1}% of kept iterations{}{}{}{}",
             lz.se,
             lz.ess,
             opts.warmup,
@@ -160,7 +160,13 @@ pub fn kiln_run(
                 format!("; {} new modes", plan.new_modes)
             } else {
                 String::new()
-            }
+            },
+            lz.control
+                .as_ref()
+                .map_or(String::new(), |c| format!("; control variates {}", c.note)),
+            lz.proposals
+                .as_ref()
+                .map_or(String::new(), |p| format!("; proposals: {}", p.note)),
         ),
     })
 }
