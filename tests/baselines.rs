@@ -227,7 +227,7 @@ fn kiln_at_a_budget_stops_near_it_and_gets_the_exact_log_z() {
             let r = kiln::bench::kiln_run(
                 &p,
                 seed,
-                kiln::sample::options::chains_for_budget(budget),
+                counts.chains,
                 counts.warmup,
                 counts.draws,
                 Some(budget),

@@ -50,7 +50,6 @@ pub fn kiln_run(
     opts.chains = chains;
     opts.warmup = warmup.max(10);
     opts.draws = draws.max(10);
-    let chains = opts.chains;
     let mut steppers: Vec<Stepper> = (0..chains)
         .map(|c| {
             Stepper::new(
@@ -177,6 +176,8 @@ pub fn kiln_run(
 /// budget ends.
 #[derive(Clone, Copy, Debug, Serialize)]
 pub struct KilnCounts {
+    /// Chains (`sample::options::chains_for_budget`), and iterations per chain.
+    pub chains: usize,
     pub warmup: usize,
     pub draws: usize,
     pub warmup_per_iteration: f64,
@@ -202,6 +203,7 @@ pub fn kiln_counts(prep: &Prepared, budget: u64) -> Result<KilnCounts, KilnError
     // chose (base, share of Hamiltonian moves), so runs stop by the budget.
     let draws = ((left / chains).ceil() as usize).max(20);
     Ok(KilnCounts {
+        chains: n_chains,
         warmup,
         draws,
         warmup_per_iteration: cw,

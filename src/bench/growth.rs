@@ -17,10 +17,11 @@
 use super::budget::kiln_counts;
 use super::jobs::{pool, run_job, Job};
 use super::output::{budget_label, log_log_chart, merge_marked, today};
+use super::results::aggregate;
 use super::targets::{two_clusters, BenchTarget};
 use super::Method;
 use crate::common::error::KilnError;
-use crate::common::maths::{exp, ln, sqrt};
+use crate::common::maths::{exp, ln};
 use crate::run::prepare;
 use serde::Serialize;
 use std::time::Instant;
@@ -159,26 +160,16 @@ pub fn run_growth() -> Result<GrowthReport, KilnError> {
                     |i| run_job(&jobs[i], &targets, &prepared, &counts),
                     |_, _| {},
                 );
-                let n = results.len() as f64;
-                let truth = targets[0].log_z;
-                let errs: Vec<f64> = results.iter().map(|r| r.log_z - truth).collect();
-                let rmse = sqrt(errs.iter().map(|e| e * e).sum::<f64>() / n);
+                // The main benchmark's aggregate (RMSE, mean SE, coverage, time, evaluations).
+                let row = aggregate(&targets[0], m, b, &results.iter().collect::<Vec<_>>());
                 let rung = Rung {
                     budget: b,
-                    rmse: if rmse.is_finite() {
-                        rmse
-                    } else {
-                        f64::INFINITY
-                    },
-                    mean_se: results.iter().map(|r| r.log_z_se).sum::<f64>() / n,
-                    coverage: errs
-                        .iter()
-                        .zip(&results)
-                        .filter(|(e, r)| e.abs() <= 2.0 * r.log_z_se)
-                        .count() as f64
-                        / n,
-                    seconds: results.iter().map(|r| r.seconds).sum::<f64>() / n,
-                    evaluations: results.iter().map(|r| r.evaluations as f64).sum::<f64>() / n,
+                    // A run without a finite log Z leaves the RMSE undefined: not reached.
+                    rmse: row.log_z_rmse.unwrap_or(f64::INFINITY),
+                    mean_se: row.log_z_mean_se.unwrap_or(f64::NAN),
+                    coverage: row.coverage.unwrap_or(f64::NAN),
+                    seconds: row.seconds,
+                    evaluations: row.evaluations,
                 };
                 eprintln!(
                     "kiln bench --growth: D = {d} {} {}: RMSE {:.4}, mean SE {:.4}, {:.2} s per run",
@@ -389,6 +380,7 @@ pub fn growth_command(json: bool) -> Result<String, KilnError> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::common::maths::sqrt;
 
     #[test]
     fn slope_of_a_power_law_is_its_exponent() {

@@ -52,16 +52,7 @@ pub(super) fn run_job(
                 .iter()
                 .find(|(ti, b, _)| *ti == job.target && *b == job.budget)
                 .map(|x| x.2);
-            match c.map(|c| {
-                kiln_run(
-                    p,
-                    job.seed,
-                    crate::sample::options::chains_for_budget(job.budget),
-                    c.warmup,
-                    c.draws,
-                    Some(job.budget),
-                )
-            }) {
+            match c.map(|c| kiln_run(p, job.seed, c.chains, c.warmup, c.draws, Some(job.budget))) {
                 Some(Ok(r)) => (
                     r.log_z,
                     r.log_z_se,

@@ -239,11 +239,11 @@ impl Chain {
             ..Record::default()
         };
         rec.z.reserve(iterations * d);
-        if plan.is_tempered() && plan.options.independence {
+        let cheap_moves = plan.is_tempered() && plan.options.independence;
+        if cheap_moves {
             rec.proposal_log_w.reserve(iterations);
         }
         let mut q = self.position(plan);
-        let cheap_moves = plan.is_tempered() && plan.options.independence;
         for _ in 0..iterations {
             // 1. Hamiltonian move (in every iteration, or with probability p_gradient when the
             //    independence move and the β draw can carry the chain on their own).

@@ -86,8 +86,9 @@ const RECORD_SCALARS: usize = 11;
 /// Encodes records as one flat array of numbers, the form in which the page's workers pass
 /// them to each other (a typed array, no text): per record `[chain, evaluations, eps, accept,
 /// divergences, leapfrogs, max_depth_hits, independence_accepted, iterations, transitions,
-/// len(z), z…, len(β), β…, δ…, len(w), w…]` (δ has β's length; w: `proposal_log_w`). Every count is below 2⁵³, so the round
-/// trip through f64 is exact, and so are the floats: [`decode_records`] gives back the same bits.
+/// len(z), z…, len(β), β…, δ…, len(w), w…]` (δ has β's length; w: `proposal_log_w`). Every
+/// count is below 2⁵³, so the round trip through f64 is exact, and so are the floats:
+/// [`decode_records`] gives back the same bits.
 pub fn encode_records(records: &[Record]) -> Vec<f64> {
     let mut out = Vec::with_capacity(
         records
