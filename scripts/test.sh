@@ -27,7 +27,7 @@ cargo clippy --lib --target wasm32-unknown-unknown -- -D warnings
 step "native tests"
 cargo test
 
-step "calibration: error bars judged by their coverage over 30 seeds on 9 targets (release)"
+step "calibration: error bars judged by their coverage over 100 seeds on 9 targets (release)"
 cargo test --profile calibration --test calibration -- --nocapture 2>&1 | grep -E '^\| |test result|failures|: '
 test "${PIPESTATUS[0]}" -eq 0 || { echo "the calibration suite failed"; exit 1; }
 

@@ -14,7 +14,9 @@
 //! each mode, runs that missed a mode, and false alarms (a "disagree" verdict on a run whose
 //! own log Z is within 4 SE of the truth). The table goes to target/calibration.md (copied into
 //! BENCHMARKS.md). `KILN_CALIBRATION_SEEDS=N` and `KILN_CALIBRATION_TARGETS=a,b` change what
-//! runs, for experiments; the assertions need the default 30 seeds.
+//! runs, for experiments; the assertions need the default 100 seeds. (100, not 30: with 30 a
+//! column at a true coverage of 93 % falls below 0.88 by chance in 16 % of suites, and one at
+//! 85 % passes in 32 %; with 100 those are 2 % and 25 % (binomial, scipy.stats 1.17.1).)
 
 // Reference values are computed with the platform's maths, independently of the engine's.
 #![allow(clippy::disallowed_methods)]
@@ -350,7 +352,7 @@ fn error_bars_cover_the_truth_over_many_seeds() {
     let seeds: u64 = std::env::var("KILN_CALIBRATION_SEEDS")
         .ok()
         .and_then(|s| s.parse().ok())
-        .unwrap_or(30);
+        .unwrap_or(100);
     let only: Option<Vec<String>> = std::env::var("KILN_CALIBRATION_TARGETS")
         .ok()
         .map(|s| s.split(',').map(|t| t.trim().to_string()).collect());
@@ -431,7 +433,7 @@ fn error_bars_cover_the_truth_over_many_seeds() {
     let out = format!("{ROOT}/target/calibration.md");
     let _ = std::fs::write(&out, &table);
     println!("\n{table}");
-    if seeds >= 30 {
+    if seeds >= 100 {
         assert!(
             failures.is_empty(),
             "calibration failures:\n{}",

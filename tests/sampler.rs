@@ -39,6 +39,13 @@ fn assert_log_z(o: &RunOutcome, truth: f64, abs_tol: f64, what: &str) {
     );
 }
 
+/// Whether warm-up cut its windows because the base already looked good (the run's note).
+fn warmup_shortened(o: &RunOutcome) -> bool {
+    o.notes
+        .iter()
+        .any(|n| n.sentence.contains("warm-up shortened"))
+}
+
 fn scipy_case(name: &str) -> Value {
     let text = std::fs::read_to_string(concat!(
         env!("CARGO_MANIFEST_DIR"),
@@ -245,6 +252,9 @@ fn egg_crate_log_z() {
     assert_log_z(&o, truth, 0.03, "egg crate");
     assert_eq!(o.est.modes.len(), 18);
     assert!(o.est.modes.iter().all(|m| m.visited));
+    // Its Laplace base looks good to the independence moves early on, but the weights have a
+    // heavy tail (k̂ above 0.5): warm-up keeps its full length.
+    assert!(!warmup_shortened(&o), "{:?}", o.notes);
 }
 
 /// Two Gaussian shells (radius 2, width 0.1, centres (±3.5, 0), uniform prior on [−6, 6]²):
@@ -258,6 +268,7 @@ fn gaussian_shells_log_z() {
     let o = run_spec(spec_of_case(&c), quick(2));
     assert_base_not_exact(&o, truth, 0.1, "shells");
     assert_log_z(&o, truth, 0.05, "shells vs scipy");
+    assert!(!warmup_shortened(&o), "a poor base keeps the full warm-up");
 }
 
 /// A ring, one Laplace component, where the plain method is biased: the exact identity
@@ -287,6 +298,7 @@ fn parabolic_ridge_log_z() {
     let truth = c["log_z"].as_f64().unwrap();
     assert_base_not_exact(&o, truth, 0.03, "parabolic ridge");
     assert_log_z(&o, truth, 0.05, "parabolic ridge");
+    assert!(!warmup_shortened(&o), "a poor base keeps the full warm-up");
 }
 
 /// A heavy-tailed posterior (Student-t likelihood, made-up data) with a scipy reference.
@@ -664,4 +676,39 @@ fn singular_hessian_and_mode_on_a_bound() {
         quick(16),
     );
     assert_log_z(&o, (1.0f64 / 3.0).ln(), 0.05, "exponential on a half-line");
+}
+
+/// A good Laplace base (a two-means mixture posterior on the Old Faithful eruption times; its
+/// log Z from scipy quadrature, tests/reference/bench_references.py) shortens warm-up, says so
+/// with its figures, and still gives log Z within its error bar.
+#[test]
+fn a_good_base_shortens_warm_up_and_says_so() {
+    let root = env!("CARGO_MANIFEST_DIR");
+    let bench: Value = serde_json::from_str(
+        &std::fs::read_to_string(format!("{root}/tests/reference/bench_values.json")).unwrap(),
+    )
+    .unwrap();
+    let case = &bench["cases"][0];
+    let spec: Value = serde_json::from_str(
+        &std::fs::read_to_string(format!("{root}/{}", case["spec"].as_str().unwrap())).unwrap(),
+    )
+    .unwrap();
+    let o = run_spec(spec, quick(1));
+    assert!(warmup_shortened(&o), "{:?}", o.notes);
+    let note = o
+        .notes
+        .iter()
+        .find(|n| n.sentence.contains("warm-up shortened"))
+        .unwrap();
+    assert!(
+        note.sentence.contains("from 500 to ") && note.sentence.contains("effective sample size"),
+        "{}",
+        note.sentence
+    );
+    assert_log_z(
+        &o,
+        case["log_z"].as_f64().unwrap(),
+        0.01,
+        "two-means mixture",
+    );
 }

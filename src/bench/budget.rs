@@ -23,6 +23,8 @@ pub struct KilnRun {
     pub log_z_se: f64,
     pub evaluations: u64,
     pub warmup_evaluations: u64,
+    /// Warm-up iterations per chain, as run (warm-up shortens itself when the base is good).
+    pub warmup_iterations: usize,
     /// Kept iterations per chain.
     pub kept: usize,
     pub draws: Draws,
@@ -131,14 +133,15 @@ pub fn kiln_run(
         log_z_se: lz.se,
         evaluations,
         warmup_evaluations,
+        warmup_iterations: plan.options.warmup,
         kept: kept.first().map_or(0, |r| r.iterations),
         draws: out,
         seconds,
         notes: format!(
-            "log Z ± {:.2e} (ESS {:.0}); {} warm-up + {} kept iterations × {chains} chains; Hamiltonian moves in {:.1}% of kept iterations{}{}{}{}",
+            "log Z ± {:.2e} (ESS {:.0}); {} warm-up + {} kept iterations × {chains} chains; Hamiltonian moves in {:.1}% of kept iterations{}{}{}{}{}",
             lz.se,
             lz.ess,
-            opts.warmup,
+            plan.options.warmup,
             kept.first().map_or(0, |r| r.iterations),
             100.0 * kept.iter().map(|r| r.transitions).sum::<usize>() as f64
                 / kept.iter().map(|r| r.iterations).sum::<usize>().max(1) as f64,
@@ -151,6 +154,14 @@ pub fn kiln_run(
                         .map(|n| n.trim_start_matches("the base was refitted to the draws of "))
                         .collect::<Vec<_>>()
                         .join("; then ")
+                )
+            } else {
+                String::new()
+            },
+            if plan.options.warmup < opts.warmup {
+                format!(
+                    "; warm-up shortened from {} (the base looked good)",
+                    opts.warmup
                 )
             } else {
                 String::new()
@@ -193,7 +204,7 @@ pub fn kiln_counts(prep: &Prepared, budget: u64) -> Result<KilnCounts, KilnError
     let w0 = ((iterations / 3.0) as usize).max(20);
     let n0 = ((2.0 * iterations / 3.0) as usize).max(20);
     let pilot = kiln_run(prep, PILOT_SEED, n_chains, w0, n0, None)?;
-    let cw = pilot.warmup_evaluations as f64 / (chains * w0 as f64);
+    let cw = pilot.warmup_evaluations as f64 / (chains * pilot.warmup_iterations.max(1) as f64);
     let cs =
         (pilot.evaluations - pilot.warmup_evaluations) as f64 / (chains * pilot.kept.max(1) as f64);
     let warmup = ((b / 3.0 / (chains * cw.max(1.0))) as usize).max(20);

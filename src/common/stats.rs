@@ -6,7 +6,7 @@
 //! the multi-chain form of Vehtari, Gelman, Simpson, Carpenter & Bürkner 2021,
 //! "Rank-normalization, folding, and localization: an improved R-hat", Bayesian Analysis 16,
 //! 667; rank-normalised split R-hat and bulk ESS from the same paper; Φ⁻¹; weighted quantiles;
-//! systematic resampling.
+//! systematic resampling; Kish's effective sample size of importance weights.
 //! Must not: know about chains' records, plans, bases or targets (plain slices in, numbers out).
 
 use crate::common::maths::{exp, ln, sqrt};
@@ -283,6 +283,20 @@ pub fn resample(weights: &[f64], n: usize, seed: u64) -> Vec<usize> {
         out.push(i);
     }
     out
+}
+
+/// Kish's effective sample size of the importance weights exp(`log_w`): (Σw)² / Σw² (0 when
+/// no weight is finite and positive). Between 1 and the number of weights.
+pub fn weights_ess(log_w: &[f64]) -> f64 {
+    let top = log_w.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    if !top.is_finite() {
+        return 0.0;
+    }
+    let (s1, s2) = log_w.iter().fold((0.0, 0.0), |(a, b), l| {
+        let w = exp(l - top);
+        (a + w, b + w * w)
+    });
+    s1 * s1 / s2
 }
 
 #[cfg(test)]

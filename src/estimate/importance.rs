@@ -6,9 +6,10 @@
 //! the sampler, so it cannot reveal a mode both lack.
 //! Must not: use the chains' draws.
 
-use crate::common::maths::{exp, ln, log_add_exp, log_sum_exp, sqrt};
+use crate::common::maths::{ln, log_add_exp, log_sum_exp, sqrt};
 use crate::common::psis::pareto_khat;
 use crate::common::rng::{Purpose, Stream};
+use crate::common::stats::weights_ess;
 use crate::model::target::Target;
 use crate::sample::chain::DEFENSIVE_SHARE;
 use crate::sample::Plan;
@@ -72,11 +73,10 @@ pub fn importance_check(target: &Target, plan: &Plan, n: usize) -> Importance {
     if !lse.is_finite() {
         return none(f64::NEG_INFINITY);
     }
-    let w: Vec<f64> = lw.iter().map(|l| exp(l - lse)).collect(); // sums to 1
-    let sum_sq: f64 = w.iter().map(|x| x * x).sum();
-    let ess = 1.0 / sum_sq;
-    // Var of the mean of w·n around 1, relative: SE(log Ẑ) ≈ sd(w n) / sqrt(n).
-    let rel_var = (sum_sq * n as f64 - 1.0).max(0.0);
+    let ess = weights_ess(&lw);
+    // Var of the mean of w·n around 1, relative: SE(log Ẑ) ≈ sd(w n) / sqrt(n), with
+    // Σ (w/Σw)² = 1/ESS.
+    let rel_var = (n as f64 / ess - 1.0).max(0.0);
     Importance {
         log_z: lse - ln(n as f64),
         se: sqrt(rel_var / n as f64),

@@ -208,6 +208,7 @@ pub const SAMPLER_NOTE_CODES: &[(&str, &str)] = &[
         "moves_every_iteration",
     ),
     ("Hamiltonian moves in ", "moves_schedule"),
+    ("warm-up shortened", "warmup_shortened"),
     (
         "% of the base approximation lies where the density is zero",
         "base_outside_support",

@@ -2,14 +2,15 @@
 //!
 //! Owns: [`Step`] and [`Stepper`]: the warm-up windows cut into steps of at most
 //! [`MAX_STEP_ITERATIONS`], the sampling chunks, merging every chain's records after a step,
-//! freezing what warm-up learned before the kept draws, and the kept records themselves.
+//! freezing what warm-up learned before the kept draws, shortening the warm-up windows left
+//! when warm-up finds the base good, and the kept records themselves.
 //! Must not: estimate anything for the report.
 
 use super::chain::{run_chains, Chain};
 use super::options::SamplerOptions;
 use super::plan::{Plan, Record};
 use super::tempering::Bias;
-use super::warmup::window_lengths;
+use super::warmup::{window_lengths, MIN_SHORT_WINDOW};
 use crate::common::error::KilnError;
 use crate::common::rng::{Purpose, Stream};
 use crate::model::target::Target;
@@ -187,6 +188,38 @@ impl Stepper {
         }
     }
 
+    /// Cuts every warm-up window after `window` to `keep` of its length (at least
+    /// [`MIN_SHORT_WINDOW`] iterations, or the whole window if shorter) and returns the new
+    /// warm-up length per chain. Called while the current step is `window`'s last piece; the
+    /// sampling steps are left as they are.
+    pub(super) fn shorten_warmup(&mut self, window: usize, keep: f64) -> usize {
+        let lengths = window_lengths(self.plan.options.warmup);
+        let mut steps: Vec<Step> = self.steps[..=self.at].to_vec();
+        let mut total: usize = lengths[..=window].iter().sum();
+        for (w, &len) in lengths.iter().enumerate().skip(window + 1) {
+            let short = ((len as f64 * keep).round() as usize).max(len.min(MIN_SHORT_WINDOW));
+            total += short;
+            let parts = pieces(short);
+            let n = parts.len();
+            for (i, iterations) in parts.into_iter().enumerate() {
+                steps.push(Step::Warmup {
+                    window: w,
+                    iterations,
+                    last_of_window: i + 1 == n,
+                });
+            }
+        }
+        steps.extend(
+            self.steps[self.at + 1..]
+                .iter()
+                .filter(|s| matches!(s, Step::Sample { .. }))
+                .copied(),
+        );
+        self.steps = steps;
+        self.plan.options.warmup = total;
+        total
+    }
+
     /// The current step, or `None` when the run is done.
     pub fn step(&self) -> Option<Step> {
         self.steps.get(self.at).copied()
@@ -292,6 +325,50 @@ impl Stepper {
 mod tests {
     use super::*;
     use crate::sample::two_modes_at;
+    use crate::sample::warmup::{SHORTEN_AFTER, WARMUP_KEEP};
+
+    #[test]
+    fn a_good_base_shortens_the_warm_up_and_keeps_the_kept_draws() {
+        // Two normal modes with their exact Laplace base: the first two windows find the base
+        // good and the five windows left are cut to WARMUP_KEEP.
+        let (target, search) = two_modes_at(6.0);
+        let laplace = Laplace::from_modes(&search.modes).unwrap();
+        let mut opts = SamplerOptions::new(3);
+        opts.chains = 2;
+        opts.warmup = 500;
+        opts.draws = 120;
+        let mut s = Stepper::new(&target, search.modes.clone(), laplace, opts, None).unwrap();
+        let (mut warm, mut kept) = (0, 0);
+        while let Some(step) = s.step() {
+            match step {
+                Step::Warmup { iterations, .. } => warm += iterations,
+                Step::Sample { iterations, .. } => kept += iterations,
+            }
+            let r = s.run_step();
+            s.absorb(r).unwrap();
+        }
+        let lengths = window_lengths(500);
+        let want: usize = lengths[..=SHORTEN_AFTER].iter().sum::<usize>()
+            + lengths[SHORTEN_AFTER + 1..]
+                .iter()
+                .map(|&l| ((l as f64 * WARMUP_KEEP).round() as usize).max(l.min(MIN_SHORT_WINDOW)))
+                .sum::<usize>();
+        assert!(want < 300, "{want}");
+        assert_eq!(warm, want);
+        assert_eq!(s.plan.options.warmup, want);
+        assert_eq!(kept, 120);
+        assert!(s.kept.iter().all(|r| r.iterations == 120));
+        let note = s
+            .plan
+            .notes
+            .iter()
+            .find(|n| n.starts_with("warm-up shortened"));
+        assert!(
+            note.is_some_and(|n| n.contains(&format!("from 500 to {want} iterations"))),
+            "{:?}",
+            s.plan.notes
+        );
+    }
 
     #[test]
     fn finer_sampling_steps_keep_the_same_draws() {
