@@ -70,6 +70,19 @@ pub struct Stepper {
     pub(super) trial_skipped: bool,
 }
 
+/// Appends warm-up window `window` of `len` iterations as its steps (the last one marked).
+fn push_window(steps: &mut Vec<Step>, window: usize, len: usize) {
+    let parts = pieces(len);
+    let n = parts.len();
+    for (i, iterations) in parts.into_iter().enumerate() {
+        steps.push(Step::Warmup {
+            window,
+            iterations,
+            last_of_window: i + 1 == n,
+        });
+    }
+}
+
 fn merge_records(into: &mut Record, r: &Record) {
     let n_old = into.transitions as f64;
     let n_new = r.transitions as f64;
@@ -120,15 +133,7 @@ impl Stepper {
         }
         let mut steps: Vec<Step> = Vec::new();
         for (window, len) in window_lengths(plan.options.warmup).into_iter().enumerate() {
-            let parts = pieces(len);
-            let n = parts.len();
-            for (i, iterations) in parts.into_iter().enumerate() {
-                steps.push(Step::Warmup {
-                    window,
-                    iterations,
-                    last_of_window: i + 1 == n,
-                });
-            }
+            push_window(&mut steps, window, len);
         }
         for (chunk, iterations) in pieces(plan.options.draws).into_iter().enumerate() {
             steps.push(Step::Sample { chunk, iterations });
@@ -199,15 +204,7 @@ impl Stepper {
         for (w, &len) in lengths.iter().enumerate().skip(window + 1) {
             let short = ((len as f64 * keep).round() as usize).max(len.min(MIN_SHORT_WINDOW));
             total += short;
-            let parts = pieces(short);
-            let n = parts.len();
-            for (i, iterations) in parts.into_iter().enumerate() {
-                steps.push(Step::Warmup {
-                    window: w,
-                    iterations,
-                    last_of_window: i + 1 == n,
-                });
-            }
+            push_window(&mut steps, w, short);
         }
         steps.extend(
             self.steps[self.at + 1..]

@@ -3,7 +3,8 @@
 //! Owns: the window lengths, the bias learning rate, when modes found by the chains and
 //! candidate bases are considered, how often a Hamiltonian move is made (the trial of cheaper
 //! moves, [`gradient_probability`], [`TRIAL_WINDOW`], [`UNDER_COVERED`]), when a good base
-//! shortens warm-up ([`GOOD_ESS_SHARE`]) and the joint variant's mass of u. Everything it learns is frozen before the kept draws (the stepper's job).
+//! shortens warm-up ([`GOOD_ESS_SHARE`]) and the joint variant's mass of u. Everything it
+//! learns is frozen before the kept draws (the stepper's job).
 //! Must not: estimate anything for the report.
 
 use super::chain::Chain;
@@ -254,30 +255,30 @@ impl Stepper {
                     100.0 * UNDER_COVERED
                 ));
             }
-        }
-        // A base that already looks good shortens the windows left (see `GOOD_ESS_SHARE`).
-        if w == SHORTEN_AFTER && plan.is_tempered() && plan.options.independence {
-            let (_, under) = efficiency(&used, records);
-            let log_w: Vec<f64> = records
-                .iter()
-                .flat_map(|r| r.proposal_log_w.iter().copied())
-                .collect();
-            let share = weights_ess(&log_w) / log_w.len().max(1) as f64;
-            let khat = pareto_khat(&log_w).unwrap_or(f64::INFINITY);
-            if share >= GOOD_ESS_SHARE && khat <= KHAT_FINITE_VARIANCE && under <= UNDER_COVERED {
-                let asked = self.plan.options.warmup;
-                let now = self.shorten_warmup(w, WARMUP_KEEP);
-                self.plan.notes.push(format!(
-                    "warm-up shortened from {asked} to {now} iterations per chain, because the base already looked good in warm-up windows 1–{}: the {} independence proposals of window {} had an effective sample size of {:.0}% of their number (at least {:.0}% needed) and k̂ {khat:.2} (at most {KHAT_FINITE_VARIANCE}), and {:.1}% of the target's weight lay where the base falls short of it by more than e² (at most {}%); the windows left were cut to {:.0}% of their length, and the kept draws are as many as asked",
-                    w + 1,
-                    log_w.len(),
-                    w + 1,
-                    100.0 * share,
-                    100.0 * GOOD_ESS_SHARE,
-                    100.0 * under,
-                    100.0 * UNDER_COVERED,
-                    100.0 * WARMUP_KEEP
-                ));
+            // A base that already looks good shortens the windows left (see `GOOD_ESS_SHARE`).
+            if w == SHORTEN_AFTER {
+                let log_w: Vec<f64> = records
+                    .iter()
+                    .flat_map(|r| r.proposal_log_w.iter().copied())
+                    .collect();
+                let share = weights_ess(&log_w) / log_w.len().max(1) as f64;
+                let khat = pareto_khat(&log_w).unwrap_or(f64::INFINITY);
+                if share >= GOOD_ESS_SHARE && khat <= KHAT_FINITE_VARIANCE && under <= UNDER_COVERED
+                {
+                    let asked = self.plan.options.warmup;
+                    let now = self.shorten_warmup(w, WARMUP_KEEP);
+                    self.plan.notes.push(format!(
+                        "warm-up shortened from {asked} to {now} iterations per chain, because the base already looked good in warm-up windows 1–{}: the {} independence proposals of window {} had an effective sample size of {:.0}% of their number (at least {:.0}% needed) and k̂ {khat:.2} (at most {KHAT_FINITE_VARIANCE}), and {:.1}% of the target's weight lay where the base falls short of it by more than e² (at most {}%); the windows left were cut to {:.0}% of their length, and the kept draws are as many as asked",
+                        w + 1,
+                        log_w.len(),
+                        w + 1,
+                        100.0 * share,
+                        100.0 * GOOD_ESS_SHARE,
+                        100.0 * under,
+                        100.0 * UNDER_COVERED,
+                        100.0 * WARMUP_KEEP
+                    ));
+                }
             }
         }
         let plan = &mut self.plan;
